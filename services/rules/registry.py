@@ -1,0 +1,3 @@
+"""The rule families run on every layer stack, in order (the rules work adds to this list)."""
+
+CHECKS: list = []

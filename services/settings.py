@@ -1,0 +1,71 @@
+"""What a user chooses for one check besides the part, printer and material."""
+
+from __future__ import annotations
+
+from dataclasses import asdict, dataclass, field
+
+from services.errors import UnusableInput
+
+ORIENTATIONS = ("+z", "-z", "+x", "-x", "+y", "-y")
+
+
+@dataclass(frozen=True, slots=True)
+class OpticsSettings:
+    """Design frequencies, illumination and intent for the optics section.
+
+    Exactly one of ``edge_taper_db`` and ``beam_waist_mm`` sets the Gaussian illumination;
+    with neither, a 10 dB edge taper at the part's rim is used (common practice).
+    ``focal_length_mm`` is measured from the part's far extreme along the optical axis.
+    """
+
+    freqs_ghz: tuple[float, ...] = ()
+    focal_length_mm: float | None = None
+    edge_taper_db: float | None = None
+    beam_waist_mm: float | None = None
+    phase_error_blocker_strehl: float = 0.5
+
+    def __post_init__(self) -> None:
+        if any(f <= 0 or f > 10_000 for f in self.freqs_ghz):
+            raise UnusableInput("bad_frequency", "Design frequencies must lie between 0 and 10,000 GHz.")
+        if self.focal_length_mm is not None and self.focal_length_mm <= 0:
+            raise UnusableInput("bad_focal_length", "The focal length must be positive.")
+        if self.edge_taper_db is not None and self.beam_waist_mm is not None:
+            raise UnusableInput("bad_illumination", "Give either an edge taper or a beam waist, not both.")
+        if self.edge_taper_db is not None and not (0 < self.edge_taper_db <= 60):
+            raise UnusableInput("bad_illumination", "The edge taper must lie between 0 and 60 dB.")
+        if self.beam_waist_mm is not None and self.beam_waist_mm <= 0:
+            raise UnusableInput("bad_illumination", "The beam waist must be positive.")
+
+    def to_dict(self) -> dict:
+        d = asdict(self)
+        d["freqs_ghz"] = list(self.freqs_ghz)
+        return d
+
+
+@dataclass(frozen=True, slots=True)
+class CheckSettings:
+    """Build orientation, quantities to quote and optics settings for one check."""
+
+    orientation: str = "+z"
+    quantities: tuple[int, ...] = (1, 5, 10, 25)
+    optics: OpticsSettings = field(default_factory=OpticsSettings)
+
+    def __post_init__(self) -> None:
+        if self.orientation not in ORIENTATIONS:
+            raise UnusableInput("bad_orientation", f"The build axis must be one of {', '.join(ORIENTATIONS)}.")
+        if not self.quantities or any(q < 1 or q > 100_000 for q in self.quantities):
+            raise UnusableInput("bad_quantity", "Quantities must be whole numbers from 1 to 100,000.")
+
+    def to_dict(self) -> dict:
+        return {"orientation": self.orientation, "quantities": list(self.quantities), "optics": self.optics.to_dict()}
+
+    @classmethod
+    def from_dict(cls, data: dict | None) -> CheckSettings:
+        data = dict(data or {})
+        optics = dict(data.get("optics") or {})
+        optics["freqs_ghz"] = tuple(float(f) for f in optics.get("freqs_ghz", ()))
+        return cls(
+            orientation=data.get("orientation", "+z"),
+            quantities=tuple(int(q) for q in data.get("quantities", (1, 5, 10, 25))),
+            optics=OpticsSettings(**optics),
+        )

@@ -1,0 +1,65 @@
+"""Shared fixtures: a private var folder per test session, and the three personas.
+
+alice owns things, bob is a lab manager on the same site, charlie is a stranger who must see
+nothing of alice's (404, not 403).
+"""
+
+import os
+import tempfile
+
+# Before Django reads its settings: keep every test run's files out of the developer's var/.
+os.environ.setdefault("PHASEWRIGHT_VAR_DIR", tempfile.mkdtemp(prefix="phasewright-test-"))
+
+import pytest  # noqa: E402
+
+
+@pytest.fixture
+def alice(db, django_user_model):
+    return django_user_model.objects.create_user("alice", password="alice-password-1")
+
+
+@pytest.fixture
+def bob(db, django_user_model):
+    from django.contrib.auth.models import Group
+
+    from webapp.accounts.roles import LAB_MANAGER_GROUP
+
+    user = django_user_model.objects.create_user("bob", password="bob-password-12")
+    user.groups.add(Group.objects.get_or_create(name=LAB_MANAGER_GROUP)[0])
+    return user
+
+
+@pytest.fixture
+def charlie(db, django_user_model):
+    return django_user_model.objects.create_user("charlie", password="charlie-password")
+
+
+def _client_for(user):
+    from django.test import Client
+
+    client = Client()
+    client.force_login(user)
+    return client
+
+
+@pytest.fixture
+def alice_client(alice):
+    return _client_for(alice)
+
+
+@pytest.fixture
+def bob_client(bob):
+    return _client_for(bob)
+
+
+@pytest.fixture
+def charlie_client(charlie):
+    return _client_for(charlie)
+
+
+@pytest.fixture
+def seeded(db):
+    """Seed the starter printers and materials."""
+    from webapp.catalogue.services import catalogue_seed
+
+    catalogue_seed()

@@ -1,0 +1,43 @@
+"""Run the whole suite the way CI does: PostgreSQL when one answers on 127.0.0.1:5432, and SQLite.
+
+The full suite runs once, on PostgreSQL if it answers (trust auth, database ``test``), else on
+SQLite; when PostgreSQL was used, the database tests run a second time on SQLite so both paths
+are exercised. Extra arguments go to pytest (e.g. ``-m "not slow"``).
+"""
+
+import os
+import socket
+import subprocess
+import sys
+
+PG_URL = "postgres://postgres@127.0.0.1:5432/test"
+
+
+def answers(host: str, port: int) -> bool:
+    try:
+        with socket.create_connection((host, port), timeout=1):
+            return True
+    except OSError:
+        return False
+
+
+def pytest(args: list[str], env: dict) -> int:
+    code = subprocess.call([sys.executable, "-m", "pytest", *args], env=env)
+    return 0 if code == 5 else code  # 5: nothing collected under this selection
+
+
+def main() -> int:
+    extra = sys.argv[1:]
+    env = {k: v for k, v in os.environ.items() if k not in ("DATABASE_URL", "REDIS_URL")}
+    if answers("127.0.0.1", 5432):
+        print(f"== full suite on PostgreSQL ({PG_URL})", flush=True)
+        first = pytest(extra, {**env, "DATABASE_URL": PG_URL})
+        print("== database tests again on SQLite", flush=True)
+        second = pytest(["tests/webapp", "-m", "not slow and not e2e", *extra], env)
+        return first or second
+    print("== full suite on SQLite (no PostgreSQL on 127.0.0.1:5432)", flush=True)
+    return pytest(extra, env)
+
+
+if __name__ == "__main__":
+    sys.exit(main())
