@@ -38,16 +38,21 @@ def parse_freqs(text: str | None) -> tuple[float, ...]:
         raise UnusableInput("bad_frequency", f"Cannot read frequencies {text!r}: give 140, 110,140,170 or 110:170:7 (start:stop:points, 1-201 points).") from None
 
 
-def add_check_options(p: argparse.ArgumentParser) -> None:
-    """Add the printer, material and settings options shared by ``check`` and ``generate --check``."""
+def add_check_options(p: argparse.ArgumentParser, *, optics: bool = True) -> None:
+    """Add the printer, material and settings options shared by ``check`` and ``generate --check``.
+
+    ``generate`` passes ``optics=False``: its own --freq-ghz and --focal-length-mm define the part
+    and become the optics settings of the check.
+    """
     p.add_argument("--printer", help="printer profile slug from the catalogue")
     p.add_argument("--material", help="material slug from the catalogue")
     p.add_argument("--printer-file", help="JSON file with a printer profile (catalogue fields)")
     p.add_argument("--material-file", help="JSON file with a material (catalogue fields)")
     p.add_argument("--orientation", default="+z", help="build axis of the file: +z (default), -z, +x, -x, +y, -y")
     p.add_argument("--quantity", type=int, action="append", help="quantity to quote (repeatable; default 1 5 10 25)")
-    p.add_argument("--freq-ghz", help="design frequencies: 140, 110,140,170 or 110:170:7")
-    p.add_argument("--focal-length-mm", type=float, help="intended focal length, from the part's far extreme")
+    if optics:
+        p.add_argument("--freq-ghz", help="design frequencies: 140, 110,140,170 or 110:170:7")
+        p.add_argument("--focal-length-mm", type=float, help="intended focal length, from the part's far extreme")
     p.add_argument("--edge-taper-db", type=float, help="Gaussian illumination: edge taper at the rim in dB")
     p.add_argument("--beam-waist-mm", type=float, help="Gaussian illumination: waist radius in mm at the part")
     p.add_argument("--format", choices=("text", "json"), default="text")
@@ -87,7 +92,8 @@ def resolve_material(args) -> Material:
 
 
 def settings_from(args) -> CheckSettings:
-    optics = OpticsSettings(freqs_ghz=parse_freqs(args.freq_ghz), focal_length_mm=args.focal_length_mm,
+    freqs = args.freq_ghz if isinstance(args.freq_ghz, (str, type(None))) else str(args.freq_ghz)
+    optics = OpticsSettings(freqs_ghz=parse_freqs(freqs), focal_length_mm=args.focal_length_mm,
                             edge_taper_db=args.edge_taper_db, beam_waist_mm=args.beam_waist_mm)
     return CheckSettings(orientation=args.orientation, quantities=tuple(args.quantity or (1, 5, 10, 25)), optics=optics)
 

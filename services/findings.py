@@ -8,7 +8,7 @@ SEVERITIES = ("blocker", "caution", "note")
 
 RULES = (
     "mesh_health", "units", "build_fit", "min_feature", "min_gap", "min_hole", "aspect_ratio",
-    "overhang", "island", "trapped_volume", "period", "phase_error",
+    "overhang", "island", "trapped_volume", "period", "phase_error", "rf_table",
 )
 
 

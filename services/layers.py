@@ -3,13 +3,16 @@
 Pipeline (measured in shared/references/geometry-bench.md, sections 2, 3 and 7): a vectorised numpy
 triangle/plane slicer, a non-zero-winding scanline that turns the segments straight into pixels (no
 polygon assembly, so holes and overlapping shells come out right), and a geometric test that skips
-layers which provably equal the one below. Distinct rasters are kept bit-packed and cropped to their
-solid rows; consecutive identical layers share one.
+layers which provably equal the one below. Consecutive identical layers share one stored raster;
+each distinct raster is bit-packed (np.packbits), cropped to its solid box and deflated (zlib level 1),
+so even a 60 mm ball at 25 um (2,400 distinct layers) is held in tens of megabytes.
 """
 
 from __future__ import annotations
 
 import math
+import numbers
+import zlib
 from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass, field, replace
 
@@ -49,10 +52,13 @@ def orient_part(part: Part, orientation: str) -> Part:
         )
     if len(part.faces) == 0:
         raise UnusableInput("empty_part", f"{part.name} has no triangles to orient.")
-    rotation = np.array(_ROTATIONS[orientation], dtype=np.float64)
-    vertices = np.asarray(part.vertices_mm, dtype=np.float64) @ rotation.T
-    used_z = vertices[np.unique(part.faces), 2]
-    vertices[:, 2] -= used_z.min()
+    rotation = np.array(_ROTATIONS[orientation])
+    axes = np.abs(rotation).argmax(axis=1)  # a signed permutation: gather and negate, no matmul needed
+    vertices = np.asarray(part.vertices_mm, dtype=np.float64)[:, axes]
+    vertices[:, rotation[np.arange(3), axes] < 0] *= -1.0
+    used = np.zeros(len(vertices), dtype=bool)
+    used[np.asarray(part.faces).ravel()] = True  # an unreferenced vertex must not lift the part off the plate
+    vertices[:, 2] -= vertices[used, 2].min()
     return replace(part, vertices_mm=vertices)
 
 
@@ -74,7 +80,7 @@ def build_layer_stack(
     builder = _StackBuilder((grid.ny, grid.nx))
     report = _Throttle(progress)
     for ks in _chunks(todo, slicer.pairs_per_layer(count), grid.layers_per_chunk()):
-        rasters = _rasterise(*slicer.cut(ks), len(ks), grid)
+        rasters = _winding_numbers(*slicer.cut(ks), len(ks), grid)
         for k, raster in zip(ks.tolist(), rasters):
             builder.repeat(k - builder.count)
             builder.add(raster)
@@ -104,8 +110,8 @@ class LayerStack:
     area_mm2: np.ndarray
     perimeter_mm: np.ndarray
     thickness_mm: np.ndarray
-    _packed: tuple[np.ndarray, ...] = field(repr=False)  # distinct rasters: packbits of rows row0..
-    _row0: np.ndarray = field(repr=False)                 # (distinct,) first stored row of each
+    _packed: tuple[bytes, ...] = field(repr=False)  # distinct rasters: packbits of their solid box, deflated
+    _boxes: np.ndarray = field(repr=False)          # (distinct, 4) first row, first byte, rows, bytes per row
     _index: np.ndarray = field(repr=False)                # (count,) layer -> distinct raster
 
     def layer(self, k: int) -> np.ndarray:
@@ -149,7 +155,7 @@ class LayerStack:
     @property
     def nbytes(self) -> int:
         """Return the bytes held by the compact raster storage."""
-        return sum(p.nbytes for p in self._packed) + self._row0.nbytes + self._index.nbytes
+        return sum(len(p) for p in self._packed) + self._boxes.nbytes + self._index.nbytes
 
     def summary(self) -> dict:
         return {
@@ -182,15 +188,17 @@ class LayerStack:
 
     def _unpack(self, d: int) -> np.ndarray:
         out = np.zeros(self.shape, dtype=bool)
-        rows = self._packed[d]
-        r0 = int(self._row0[d])
-        out[r0:r0 + len(rows)] = np.unpackbits(rows, axis=1, count=self.shape[1]).view(bool)
+        r0, b0, rows, row_bytes = (int(v) for v in self._boxes[d])
+        box = np.frombuffer(zlib.decompress(self._packed[d]), dtype=np.uint8).reshape(rows, row_bytes)
+        c0 = 8 * b0
+        width = min(8 * box.shape[1], self.shape[1] - c0)
+        out[r0:r0 + len(box), c0:c0 + width] = np.unpackbits(box, axis=1, count=width).view(bool)
         return out
 
 
 def _check_grid_sizes(pixel_mm: float, layer_height_mm: float) -> None:
     for value in (pixel_mm, layer_height_mm):
-        if not (isinstance(value, (int, float)) and math.isfinite(value) and value > 0):
+        if isinstance(value, bool) or not (isinstance(value, numbers.Real) and math.isfinite(value) and value > 0):
             raise UnusableInput("bad_grid", "Pixel size and layer height must be positive millimetre values.")
 
 
@@ -235,8 +243,8 @@ class _Grid:
     @classmethod
     def around(cls, tris: np.ndarray, px: float, name: str) -> _Grid:
         """Return the grid covering the triangles' xy bounds plus a void margin."""
-        lo = tris[:, :, :2].reshape(-1, 2).min(axis=0)
-        hi = tris[:, :, :2].reshape(-1, 2).max(axis=0)
+        lo = np.array([tris[:, :, 0].min(), tris[:, :, 1].min()])  # per coordinate: 30x faster than axis=0
+        hi = np.array([tris[:, :, 0].max(), tris[:, :, 1].max()])
         i0 = np.floor(lo / px).astype(np.int64) - MARGIN_PX
         i1 = np.ceil(hi / px).astype(np.int64) + MARGIN_PX
         nx, ny = (int(n) for n in i1 - i0)
@@ -268,7 +276,9 @@ def _changed_layers(tris: np.ndarray, heights: np.ndarray, tol_mm: float) -> np.
     changed = np.zeros(count + 1, dtype=bool)
     changed[np.searchsorted(heights, tris[:, :, 2].ravel(), "left")] = True
     n = np.cross(tris[:, 1] - tris[:, 0], tris[:, 2] - tris[:, 0])
-    z_min, z_max = tris[:, :, 2].min(axis=1), tris[:, :, 2].max(axis=1)
+    z = tris[:, :, 2]
+    z_min = np.minimum(np.minimum(z[:, 0], z[:, 1]), z[:, 2])
+    z_max = np.maximum(np.maximum(z[:, 0], z[:, 1]), z[:, 2])
     sloped = (z_max - z_min) * np.abs(n[:, 2]) > tol_mm * np.hypot(n[:, 0], n[:, 1])
     first = np.searchsorted(heights, z_min[sloped], "right") + 1
     stop = np.searchsorted(heights, z_max[sloped], "right")
@@ -315,6 +325,7 @@ class _Slicer:
         self.b_z = st[:, 1, 2].copy()
         self.heights = heights
         self._order = np.argsort(self.first, kind="stable")
+        self._first_sorted = self.first[self._order]
         self._next = 0
         self._active = np.zeros(0, dtype=np.int64)
 
@@ -338,7 +349,7 @@ class _Slicer:
 
     def _pairs(self, ks: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Return (triangle, chunk-local layer) for every crossing, keeping a set of live triangles."""
-        end = np.searchsorted(self.first[self._order], ks[-1], "right")
+        end = np.searchsorted(self._first_sorted, ks[-1], "right")
         live = np.concatenate([self._active, self._order[self._next:end]])
         self._next = end
         self._active = live = live[self.stop[live] > ks[0]]
@@ -374,8 +385,8 @@ def _winding_sign(tris: np.ndarray, st: np.ndarray) -> np.ndarray:
     return np.sign(along).astype(np.int8)
 
 
-def _rasterise(j, px, py, qx, qy, winding, layers: int, grid: _Grid) -> np.ndarray:
-    """Return bool (layers, ny, nx): pixel centres with a non-zero winding number.
+def _winding_numbers(j, px, py, qx, qy, winding, layers: int, grid: _Grid) -> np.ndarray:
+    """Return int8 (layers, ny, nx) winding numbers at the pixel centres; non-zero is solid.
 
     Each segment adds its winding at the first pixel row above where it crosses each pixel-centre
     column in [x_min, x_max) (half-open, so a shared vertex counts once); a prefix sum up the rows
@@ -394,40 +405,52 @@ def _rasterise(j, px, py, qx, qy, winding, layers: int, grid: _Grid) -> np.ndarr
     row = np.clip(np.floor((y - grid.y0) / grid.px - 0.5).astype(np.int64) + 1, 0, grid.ny)
     acc = np.zeros((layers, grid.ny + 1, grid.nx), dtype=np.int8)
     np.add.at(acc.reshape(-1), (j[s] * (grid.ny + 1) + row) * grid.nx + col, winding[s])
-    for r in range(1, grid.ny):  # row-by-row adds on contiguous rows beat np.cumsum 2x (bench section 3)
-        np.add(acc[:, r], acc[:, r - 1], out=acc[:, r])
-    return acc[:, : grid.ny] != 0
+    if s.size:
+        _prefix_rows(acc, int(row.min()), min(int(row.max()), grid.ny - 1), int(col.min()), int(col.max()) + 1)
+    return acc[:, : grid.ny]
+
+
+def _prefix_rows(acc: np.ndarray, r0: int, r1: int, c0: int, c1: int) -> None:
+    """Sum acc up the rows inside the box the crossings touch; everything outside it stays as it is."""
+    box = acc[:, :, c0:c1]
+    for r in range(r0 + 1, r1 + 1):  # row-by-row adds on contiguous rows beat np.cumsum 2x (bench section 3)
+        np.add(box[:, r], box[:, r - 1], out=box[:, r])
+    if box[:, r1].any():  # an open mesh leaves a winding above its last crossing: carry it up
+        box[:, r1 + 1:] = box[:, r1:r1 + 1]
 
 
 class _StackBuilder:
-    """Collect layers bottom-up: pack each new distinct raster, count runs, add up the thickness."""
+    """Collect layers bottom-up: keep each new distinct raster bit-packed, count runs and column totals.
+
+    A raster is stored as the deflated packed bytes of its solid box (rows r0.., bytes b0..), so small
+    layers cost little. A column's solid-layer count is the sum of (layer it switches off - layer it switches
+    on) over its runs, so each new raster only touches the pixels that changed from the one below.
+    """
 
     def __init__(self, shape: tuple[int, int]) -> None:
         self.shape = (int(shape[0]), int(shape[1]))
         self.count = 0
-        self.packed: list[np.ndarray] = []
-        self.row0: list[int] = []
+        self.packed: list[bytes] = []
+        self.boxes: list[tuple[int, int, int, int]] = []
+        self.last: tuple[tuple[int, int], np.ndarray] | None = None  # the top raster, still unpacked
         self.area_px: list[int] = []
         self.edges_px: list[int] = []
         self.run_lengths: list[int] = []
         self.columns = np.zeros(self.shape, dtype=np.int32)
-        self._solid: np.ndarray | None = None  # solid rows of the current run's raster
 
-    def add(self, mask: np.ndarray) -> None:
-        """Append one layer, sharing the stored raster when it equals the layer below."""
-        packed = np.packbits(mask, axis=1)
-        rows = np.flatnonzero(packed.any(axis=1))
-        r0, r1 = (int(rows[0]), int(rows[-1]) + 1) if rows.size else (0, 0)
-        packed = packed[r0:r1].copy()
-        if self.packed and r0 == self.row0[-1] and np.array_equal(packed, self.packed[-1]):
+    def add(self, raster: np.ndarray) -> None:
+        """Append one layer (non-zero is solid), sharing the stored raster when it equals the layer below."""
+        corner, box = _solid_box(np.packbits(raster, axis=1))
+        if self.last and corner == self.last[0] and np.array_equal(box, self.last[1]):
             self.repeat(1)
             return
-        self._flush()
-        self._solid = mask[r0:r1].copy()
-        self.packed.append(packed)
-        self.row0.append(r0)
-        self.area_px.append(int(np.bitwise_count(packed).sum(dtype=np.int64)))
-        self.edges_px.append(_transitions(packed, self._solid))
+        self._switch(corner, box)
+        self.last = (corner, box)
+        # Level 1 deflate costs ~1 ms for a 2400^2 layer and shrinks it 8-50x (runs of equal bytes).
+        self.packed.append(zlib.compress(box.tobytes(), 1))
+        self.boxes.append((*corner, *box.shape))
+        self.area_px.append(int(np.bitwise_count(box).sum(dtype=np.int64)))
+        self.edges_px.append(_transitions(box))
         self.run_lengths.append(1)
         self.count += 1
 
@@ -438,7 +461,7 @@ class _StackBuilder:
             self.count += n
 
     def finish(self, pixel_mm: float, layer_height_mm: float, origin_mm: tuple) -> LayerStack:
-        self._flush()
+        self._switch((0, 0), np.zeros((0, 0), dtype=np.uint8))
         index = np.repeat(np.arange(len(self.packed), dtype=np.int32), self.run_lengths)
         area = np.asarray(self.area_px, dtype=np.float64)[index] * pixel_mm**2
         perimeter = np.asarray(self.edges_px, dtype=np.float64)[index] * pixel_mm
@@ -448,29 +471,63 @@ class _StackBuilder:
         return LayerStack(
             pixel_mm=float(pixel_mm), layer_height_mm=float(layer_height_mm),
             origin_mm=tuple(float(v) for v in origin_mm), shape=self.shape, count=self.count,
-            area_mm2=area, perimeter_mm=perimeter, thickness_mm=thickness,
-            _packed=tuple(self.packed), _row0=np.asarray(self.row0, dtype=np.int32), _index=index,
+            area_mm2=area, perimeter_mm=perimeter, thickness_mm=thickness, _packed=tuple(self.packed),
+            _boxes=np.asarray(self.boxes, dtype=np.int32).reshape(-1, 4), _index=index,
         )
 
-    def _flush(self) -> None:
-        """Add the finished run's raster to the column counts, once per layer it stands for."""
-        if self._solid is None:
+    def _switch(self, corner: tuple[int, int], box: np.ndarray) -> None:
+        """Subtract this layer's index where pixels switch on and add it where they switch off."""
+        old = self.last or (corner, box[:0, :0])
+        boxes = [(c, b) for c, b in (old, (corner, box)) if b.size]
+        if not boxes:
             return
-        r0 = self.row0[-1]
-        block = self.columns[r0:r0 + len(self._solid)]
-        np.add(block, self.run_lengths[-1], out=block, where=self._solid)
-        self._solid = None
+        r0, b0 = (min(c[i] for c, _ in boxes) for i in (0, 1))
+        r1, b1 = (max(c[i] + b.shape[i] for c, b in boxes) for i in (0, 1))
+        new = _placed(corner, box, r0, r1, b0, b1)
+        flips = _placed(*old, r0, r1, b0, b1) ^ new
+        width = min(8 * (b1 - b0), self.shape[1] - 8 * b0)
+        block, layer = self.columns[r0:r1, 8 * b0:8 * b0 + width], self.count
+        changed = np.flatnonzero(flips)
+        if changed.size * 8 > flips.size:  # most bytes changed: one dense pass is cheaper
+            flips, new = (np.unpackbits(a, axis=1, count=width).view(bool) for a in (flips, new))
+            np.subtract(block, layer, out=block, where=flips & new)
+            np.add(block, layer, out=block, where=flips & ~new)
+            return
+        byte, bit = np.nonzero(np.unpackbits(flips.ravel()[changed][:, None], axis=1))
+        flat = changed[byte]
+        now_on = (new.ravel()[flat] >> (7 - bit).astype(np.uint8)) & 1
+        block[flat // new.shape[1], flat % new.shape[1] * 8 + bit] += np.where(now_on, -layer, layer)
 
 
-def _transitions(packed: np.ndarray, solid: np.ndarray) -> int:
-    """Return the number of solid/void 4-neighbour pixel pairs, with everything outside void."""
-    if solid.size == 0:
+def _solid_box(packed: np.ndarray) -> tuple[tuple[int, int], np.ndarray]:
+    """Return ((first row, first byte), copy of the packed bytes) of the box holding every solid pixel."""
+    rows = np.flatnonzero(packed.any(axis=1))
+    if rows.size == 0:
+        return (0, 0), np.zeros((0, 0), dtype=np.uint8)
+    cols = np.flatnonzero(packed[rows[0]:rows[-1] + 1].any(axis=0))
+    box = packed[rows[0]:rows[-1] + 1, cols[0]:cols[-1] + 1].copy()
+    return (int(rows[0]), int(cols[0])), box
+
+
+def _placed(corner: tuple[int, int], box: np.ndarray, r0: int, r1: int, b0: int, b1: int) -> np.ndarray:
+    """Return packed rows r0..r1-1, bytes b0..b1-1 of a raster stored as a box at corner."""
+    out = np.zeros((r1 - r0, b1 - b0), dtype=np.uint8)
+    out[corner[0] - r0:corner[0] - r0 + box.shape[0], corner[1] - b0:corner[1] - b0 + box.shape[1]] = box
+    return out
+
+
+def _transitions(box: np.ndarray) -> int:
+    """Return the number of solid/void 4-neighbour pixel pairs in a packed box, everything outside void."""
+    if box.size == 0:
         return 0
-    vertical = np.bitwise_count(packed[1:] ^ packed[:-1]).sum(dtype=np.int64)
-    vertical += np.bitwise_count(packed[0]).sum(dtype=np.int64) + np.bitwise_count(packed[-1]).sum(dtype=np.int64)
-    horizontal = np.count_nonzero(solid[:, 1:] != solid[:, :-1])
-    horizontal += np.count_nonzero(solid[:, 0]) + np.count_nonzero(solid[:, -1])
-    return int(vertical + horizontal)
+    count = np.bitwise_count(box[1:] ^ box[:-1]).sum(dtype=np.int64)
+    count += np.bitwise_count(box[0]).sum(dtype=np.int64) + np.bitwise_count(box[-1]).sum(dtype=np.int64)
+    shifted = box >> 1  # each bit next to its left neighbour; the box's first pixel meets the void
+    shifted[:, 1:] |= (box[:, :-1] & 1) << 7
+    count += np.bitwise_count(box ^ shifted).sum(dtype=np.int64)
+    # The box's last bit has no right neighbour inside it: it meets the void (a padding bit is 0).
+    count += np.count_nonzero(box[:, -1] & 1)
+    return int(count)
 
 
 class _Throttle:

@@ -4,13 +4,7 @@ alice owns things, bob is a lab manager on the same site, charlie is a stranger 
 nothing of alice's (404, not 403).
 """
 
-import os
-import tempfile
-
-# Before Django reads its settings: keep every test run's files out of the developer's var/.
-os.environ.setdefault("PHASEWRIGHT_VAR_DIR", tempfile.mkdtemp(prefix="phasewright-test-"))
-
-import pytest  # noqa: E402
+import pytest
 
 
 @pytest.fixture

@@ -12,12 +12,11 @@ app.autodiscover_tasks(["webapp.checks"])
 
 
 def _make_broker_folders() -> None:
-    """Create the folder broker's folders: kombu's filesystem transport expects them to exist."""
+    """Create the folder broker's folders (cheap, and kombu's filesystem transport expects them)."""
     from django.conf import settings
 
-    if settings.CELERY_BROKER_URL.startswith("filesystem"):
-        for key in ("data_folder_in", "control_folder", "processed_folder"):
-            os.makedirs(settings.CELERY_BROKER_TRANSPORT_OPTIONS[key], exist_ok=True)
+    for key in ("data_folder_in", "control_folder", "processed_folder"):
+        os.makedirs(settings.FOLDER_BROKER_OPTIONS[key], exist_ok=True)
 
 
 _make_broker_folders()

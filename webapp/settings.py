@@ -41,8 +41,9 @@ ALLOWED_HOSTS = [h for h in envstr("PHASEWRIGHT_ALLOWED_HOSTS", "127.0.0.1,local
 SITE_ROOT = envstr("PHASEWRIGHT_SITE_ROOT", "http://127.0.0.1:8000")
 CSRF_TRUSTED_ORIGINS = [SITE_ROOT]
 
-# Everything the app writes (SQLite file, local broker, uploads, reports) lives under one folder.
-VAR_DIR = Path(envstr("PHASEWRIGHT_VAR_DIR", str(BASE_DIR / "var")))
+# Everything the app writes (SQLite file, local broker, uploads, reports) lives under one folder;
+# a test run (pytest sets PYTEST_VERSION) gets its own, so it never mixes with the demo's data.
+VAR_DIR = Path(envstr("PHASEWRIGHT_VAR_DIR", str(BASE_DIR / ("var/test" if os.environ.get("PYTEST_VERSION") else "var"))))
 VAR_DIR.mkdir(parents=True, exist_ok=True)
 
 INSTALLED_APPS = [
@@ -105,6 +106,7 @@ USE_TZ = True
 
 STATIC_URL = "/static/"
 STATIC_ROOT = VAR_DIR / "static"
+STATIC_ROOT.mkdir(exist_ok=True)
 STORAGES = {
     "default": {"BACKEND": "django.core.files.storage.FileSystemStorage",
                 "OPTIONS": {"location": str(VAR_DIR / "private")}},
@@ -125,10 +127,12 @@ FILE_UPLOAD_MAX_MEMORY_SIZE = 5 * 2**20
 REDIS_URL = envstr("REDIS_URL", "")
 CELERY_BROKER_URL = REDIS_URL or "filesystem://"
 BROKER_DIR = VAR_DIR / "broker"
-CELERY_BROKER_TRANSPORT_OPTIONS = {"visibility_timeout": 3600} if REDIS_URL else {
+FOLDER_BROKER_OPTIONS = {
     "data_folder_in": str(BROKER_DIR / "queue"), "data_folder_out": str(BROKER_DIR / "queue"),
     "control_folder": str(BROKER_DIR / "control"), "processed_folder": str(BROKER_DIR / "processed"),
     "store_processed": False}
+# Redis redelivers a message not acked within the visibility timeout: it must exceed the hard time limit.
+CELERY_BROKER_TRANSPORT_OPTIONS = {"visibility_timeout": 3600} if REDIS_URL else FOLDER_BROKER_OPTIONS
 CELERY_TASK_ACKS_LATE = True
 CELERY_TASK_REJECT_ON_WORKER_LOST = True
 CELERY_WORKER_PREFETCH_MULTIPLIER = 1

@@ -52,24 +52,49 @@ class AngularSpectrum:
         lim_y = 1.0 / (lam * np.sqrt((2 * z_mm / (self.padded[0] * self.cell_mm)) ** 2 + 1))
         return h * ((np.abs(fx) < lim_x) & (np.abs(fy) < lim_y))
 
-    def plane(self, z_mm: float) -> np.ndarray:
-        """Return the field at distance z on the original (ny, nx) window."""
+    def plane(self, z_mm: float, *, padded: bool = False) -> np.ndarray:
+        """Return the field at distance z on the original (ny, nx) window, or on the padded one."""
         full = sfft.ifft2(self.spectrum * self.transfer(z_mm), workers=-1)
+        if padded:
+            return full
         (oy, ox), (ny, nx) = self.offset, self.shape
         return full[oy:oy + ny, ox:ox + nx]
 
     def on_axis(self, z_mm: np.ndarray, index: tuple[int, int]) -> np.ndarray:
-        """Return the field at one sample (row, col of the original window) for many distances.
+        """Return the field at one sample (row, col of the original window) at evenly spaced distances.
 
-        Each value is a single inverse-DFT coefficient, sum_k A_k H_k(z) e^{j 2 pi k.p} / N,
-        so a fine scan along the axis costs no FFTs.
+        Each value is one inverse-DFT coefficient, sum_k A_k H_k(z) e^{j 2 pi k.p} / N, so a fine scan
+        along the axis costs no FFTs: H is stepped by multiplying with H(dz), and each plane wave
+        leaves the sum at the distance where the band limit drops it. Evanescent waves are left out
+        (they are gone within a few wavelengths).
         """
+        z = np.asarray(z_mm, dtype=float)
+        w, kz, z_cut = self._axis_terms(index)
+        step = z[1] - z[0] if len(z) > 1 else 0.0
+        if self.paraxial or (len(z) > 2 and not np.allclose(np.diff(z), step)):
+            raise ValueError("on_axis needs evenly spaced distances and the exact transfer function")
+        term = w * np.exp(-2j * np.pi * z[0] * kz)
+        factor = np.exp(-2j * np.pi * step * kz)
+        out = np.empty(len(z), dtype=complex)
+        for i, zi in enumerate(z):
+            out[i] = term[z_cut > zi].sum()
+            term *= factor
+        return out
+
+    def _axis_terms(self, index: tuple[int, int]):
+        """Return the weights, kz and band-limit cut-off distance of the plane waves that matter."""
         py, px = index[0] + self.offset[0], index[1] + self.offset[1]
         ky = np.arange(self.padded[0])[:, None] * py / self.padded[0]
         kx = np.arange(self.padded[1])[None, :] * px / self.padded[1]
         weights = self.spectrum * np.exp(2j * np.pi * (ky + kx)) / (self.padded[0] * self.padded[1])
-        keep = np.abs(weights) > np.abs(weights).max() * 1e-9
-        fx = np.broadcast_to(self.fx, self.padded)[keep]
-        fy = np.broadcast_to(self.fy, self.padded)[keep]
-        w = weights[keep]
-        return np.array([np.dot(w, self._transfer(fx, fy, z)) for z in np.asarray(z_mm, dtype=float)])
+        fx = np.broadcast_to(self.fx, self.padded)
+        fy = np.broadcast_to(self.fy, self.padded)
+        arg = 1.0 / self.wavelength_mm**2 - fx**2 - fy**2
+        keep = (np.abs(weights) > np.abs(weights).max() * 1e-9) & (arg >= 0)
+        fx, fy, arg = np.abs(fx[keep]), np.abs(fy[keep]), arg[keep]
+        lam = self.wavelength_mm
+        with np.errstate(divide="ignore"):
+            # |f| < 1 / (lambda sqrt((2 z / L)^2 + 1))  <=>  z < L/2 sqrt(1 / (lambda f)^2 - 1)
+            cut_x = self.padded[1] * self.cell_mm / 2 * np.sqrt(np.maximum(1 / (lam * fx) ** 2 - 1, 0))
+            cut_y = self.padded[0] * self.cell_mm / 2 * np.sqrt(np.maximum(1 / (lam * fy) ** 2 - 1, 0))
+        return weights[keep], np.sqrt(arg), np.minimum(cut_x, cut_y)

@@ -1,0 +1,156 @@
+"""Time intake + layer stack on the reference parts, each case in a fresh process.
+
+    .venv/bin/python benchmarks/make_reference_parts.py   # once
+    .venv/bin/python benchmarks/bench_layers.py            # all cases 3 times, a table at the end
+    .venv/bin/python benchmarks/bench_layers.py --case pillar_plate_30mm --px 0.025 --dz 0.025 --mode stack
+
+Modes: ``stack`` reads the STL as a raw triangle soup with numpy, makes a Part, orients it and
+builds the layer stack; ``manifold`` reads the same soup, merges it into a manifold3d Manifold and
+slices every layer's mid-plane (``Manifold.slice`` + ``to_polygons``): the slice-only baseline.
+Peak memory is the process's maximum resident set size (resource.getrusage).
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import resource
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+
+ROOT = Path(__file__).resolve().parent.parent
+sys.path.insert(0, str(ROOT))
+
+from services.layers import build_layer_stack, orient_part  # noqa: E402
+from services.part import Part  # noqa: E402
+
+PARTS_DIR = ROOT / "benchmarks" / "parts"
+STL_RECORD = np.dtype([("normal", "<f4", 3), ("v", "<f4", (3, 3)), ("attr", "<u2")])
+GRIDS = ((0.05, 0.05), (0.025, 0.025))
+MAIN_PARTS = ("zoned_lens_60mm", "pillar_plate_30mm", "smooth_lens_2m")
+WORST_CASE = ("sphere_60mm", 0.025, 0.025)  # every layer distinct over 60 mm: the storage worst case
+SCALING = (  # triangles: the plate at 16 / 32 / 64 segments; layers: 100 / 50 / 25 um at a 50 um pixel
+    ("pillar_plate_30mm_seg16", 0.05, 0.05), ("pillar_plate_30mm_seg64", 0.05, 0.05),
+    ("pillar_plate_30mm", 0.05, 0.1), ("pillar_plate_30mm", 0.05, 0.025),
+)
+
+
+def read_stl_soup(path: Path) -> np.ndarray:
+    """Return the (T, 3, 3) float32 triangles of a binary STL file."""
+    with open(path, "rb") as fh:
+        fh.seek(80)
+        count = int(np.frombuffer(fh.read(4), "<u4")[0])
+        return np.fromfile(fh, dtype=STL_RECORD, count=count)["v"]
+
+
+def peak_rss_mb() -> float:
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0  # kB on Linux
+
+
+def run_stack(path: Path, px: float, dz: float) -> dict:
+    start = time.perf_counter()
+    tris = read_stl_soup(path)
+    part = Part(
+        name=path.stem, sha256="bench", source_format="stl", units="mm",
+        vertices_mm=tris.reshape(-1, 3).astype(np.float64),
+        faces=np.arange(3 * len(tris), dtype=np.int64).reshape(-1, 3), bodies=1, watertight=True,
+    )
+    part = orient_part(part, "+z")
+    read_s = time.perf_counter() - start
+    stack = build_layer_stack(part, pixel_mm=px, layer_height_mm=dz)
+    total_s = time.perf_counter() - start
+    return {
+        "triangles": len(tris), "layers": stack.count, "distinct": stack.distinct_count,
+        "grid": list(stack.shape), "volume_mm3": round(stack.volume_mm3, 2), "read_s": round(read_s, 3),
+        "stack_s": round(total_s - read_s, 3), "total_s": round(total_s, 3),
+        "store_mb": round(stack.nbytes / 2**20, 1),
+    }
+
+
+def run_manifold(path: Path, px: float, dz: float) -> dict:
+    import manifold3d
+
+    start = time.perf_counter()
+    tris = read_stl_soup(path)
+    mesh = manifold3d.Mesh(
+        vert_properties=np.ascontiguousarray(tris.reshape(-1, 3)),
+        tri_verts=np.arange(3 * len(tris), dtype=np.uint32).reshape(-1, 3),
+    )
+    mesh.merge()
+    solid = manifold3d.Manifold(mesh)
+    if solid.status() != manifold3d.Error.NoError:
+        raise SystemExit(f"{path.name}: manifold3d returned {solid.status()}")
+    load_s = time.perf_counter() - start
+    z_top = float(tris[:, :, 2].max())
+    heights = (np.arange(max(1, int(np.ceil(z_top / dz - 0.5)))) + 0.5) * dz
+    start = time.perf_counter()
+    area = sum(solid.slice(float(h)).area() for h in heights)
+    slice_s = time.perf_counter() - start
+    return {
+        "triangles": len(tris), "layers": len(heights), "volume_mm3": round(area * dz, 2),
+        "load_s": round(load_s, 3), "slice_s": round(slice_s, 3),
+    }
+
+
+def one_case(args: argparse.Namespace) -> int:
+    path = PARTS_DIR / f"{args.case}.stl"
+    if not path.exists():
+        raise SystemExit(f"{path} is missing: run benchmarks/make_reference_parts.py first")
+    result = (run_stack if args.mode == "stack" else run_manifold)(path, args.px, args.dz)
+    result.update(case=args.case, px_mm=args.px, dz_mm=args.dz, mode=args.mode, peak_rss_mb=round(peak_rss_mb()))
+    print(json.dumps(result))
+    return 0
+
+
+def fresh(case: str, px: float, dz: float, mode: str) -> dict:
+    cmd = [sys.executable, __file__, "--case", case, "--px", str(px), "--dz", str(dz), "--mode", mode]
+    out = subprocess.run(cmd, check=True, capture_output=True, text=True).stdout
+    result = json.loads(out.strip().splitlines()[-1])
+    print(json.dumps(result), flush=True)
+    return result
+
+
+def all_cases(repeat: int) -> int:
+    cases = [(c, px, dz, m) for c in MAIN_PARTS for px, dz in GRIDS for m in ("stack", "manifold")]
+    cases += [(c, px, dz, "stack") for c, px, dz in SCALING + (WORST_CASE,)]
+    results = [fresh(*case) for _ in range(repeat) for case in cases]
+    out = ROOT / "benchmarks" / "results_layers.json"
+    out.write_text(json.dumps(results, indent=1) + "\n")
+    print(f"wrote {out}\n")
+    print_table(results)
+    return 0
+
+
+def print_table(results: list[dict]) -> None:
+    """Print one markdown row per case: median and range of the repeats."""
+    groups: dict[tuple, list[dict]] = {}
+    for r in results:
+        groups.setdefault((r["case"], r["px_mm"], r["dz_mm"], r["mode"]), []).append(r)
+    print("| part | px / dz (um) | mode | triangles | layers (distinct) | time s: median (range) | peak RSS MB | store MB |")
+    print("|---|---|---|---|---|---|---|---|")
+    for (case, px, dz, mode), runs in groups.items():
+        key = "total_s" if mode == "stack" else "slice_s"
+        t = sorted(r[key] for r in runs)
+        layers = f"{runs[0]['layers']} ({runs[0]['distinct']})" if mode == "stack" else str(runs[0]["layers"])
+        print(f"| {case} | {px * 1000:g} / {dz * 1000:g} | {mode} | {runs[0]['triangles']:,} | {layers} | "
+              f"{t[len(t) // 2]:.2f} ({t[0]:.2f}-{t[-1]:.2f}) | {max(r['peak_rss_mb'] for r in runs)} | "
+              f"{runs[0].get('store_mb', '')} |")
+
+
+def main(argv: list[str]) -> int:
+    parser = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
+    parser.add_argument("--case")
+    parser.add_argument("--px", type=float, default=0.05)
+    parser.add_argument("--dz", type=float, default=0.05)
+    parser.add_argument("--mode", choices=("stack", "manifold"), default="stack")
+    parser.add_argument("--repeat", type=int, default=3, help="fresh runs per case (all cases only)")
+    args = parser.parse_args(argv)
+    return one_case(args) if args.case else all_cases(args.repeat)
+
+
+if __name__ == "__main__":
+    sys.exit(main(sys.argv[1:]))

@@ -1,0 +1,219 @@
+"""Windows: a flat slab for a band, bare or with a matching layer on each face.
+
+The matching layer is a quarter-wave layer of index sqrt(n), t = lambda0 / (4 sqrt(n)) (Pozar
+2012 section 5.4; optics notes section 2.1), made of subwavelength grooves whose fill gives that
+index by zeroth-order effective-medium theory (Rytov 1956), or a graded layer of pyramids. The
+bare slab defaults to a half-wave multiple, m lambda0 / (2 n), reflectionless at the band centre.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from services.components.base import Component, Context, finish
+from services.components.formulas import Medium, largest_micron_below, medium_at, no_diffraction_period_mm
+from services.components.solid import CHORD_TOL_MM, check_fits, checked, disc, extrude_xz_profile, intersect, union
+from services.errors import UnusableInput
+from services.optics.effective_medium import DEFAULT_MODEL, effective_permittivity, rytov_parallel, rytov_perpendicular
+from services.optics.materials import complex_index
+from services.optics.transfer import cascade, s_parameters
+
+MIN_CORE_MM = 1.0  # thinnest default core, for handling (engineering judgement)
+GEOMETRIC_MARGIN = 0.02  # without a printer: smallest ridge, groove or pyramid tip, as a share of the period
+# Pyramid layers aim to keep each face's reflection under 1 % (-20 dB) across the band (common practice).
+PYRAMID_TARGET_REFLECTANCE = 0.01
+PYRAMID_SLICES = 24
+SINK_MM = 0.05  # matching layers reach this far into the core, so unions meet no coincident faces
+
+
+def build_window(ctx: Context) -> Component:
+    """Return the window with its matching layers, and its band performance."""
+    p = ctx.params
+    band = _band(ctx)
+    centre = band[1]
+    # Nine frequencies across the band for the reflection of one face (the pyramid design target).
+    sweep = [medium_at(ctx.material, f) for f in np.linspace(band[0].freq_ghz, band[2].freq_ghz, 9)]
+    core, order = _core_thickness(p, centre)
+    period, limit = _period(p, band[2], ctx.material.name)
+    layer = _matching_layer(p, centre, sweep, period, ctx.printer)
+    depth = layer.get("depth_mm", 0.0)
+    width = p["diameter_mm"]
+    check_fits((width, width, core + 2 * depth), ctx.volumes, "window")
+    solid = _window_solid(p, core, period, layer)
+    derived = {"design_freq_ghz": centre.freq_ghz, "thickness_mm": core, "half_wave_order": order,
+               "total_thickness_mm": core + 2 * depth, "period_mm": period if p["matching"] != "none" else None,
+               "period_limit_mm": limit, **{k: v for k, v in layer.items() if k != "slices"},
+               "band": _band_table(band, core, layer), "max_face_reflectance": _face_worst(sweep, layer)}
+    return finish(ctx, solid, centre, derived, focal_length_mm=None)
+
+
+def _band(ctx: Context) -> tuple[Medium, Medium, Medium]:
+    """Return the material at the band's bottom, centre and top."""
+    p = ctx.params
+    if p["freq_max_ghz"] <= p["freq_min_ghz"]:
+        raise UnusableInput("bad_parameter", f"freq_max_ghz ({p['freq_max_ghz']:g}) must lie above freq_min_ghz "
+                            f"({p['freq_min_ghz']:g}).")
+    centre = (p["freq_min_ghz"] + p["freq_max_ghz"]) / 2
+    return tuple(medium_at(ctx.material, f) for f in (p["freq_min_ghz"], centre, p["freq_max_ghz"]))
+
+
+def _core_thickness(p: dict, centre: Medium) -> tuple[float, int | None]:
+    """Return the core thickness: given, or the thinnest half-wave multiple of at least 1 mm."""
+    if p["thickness_mm"]:
+        return p["thickness_mm"], None
+    half = centre.wavelength_mm / (2 * centre.n)
+    order = max(1, int(np.ceil(MIN_CORE_MM / half - 1e-9)))
+    return order * half, order
+
+
+def _period(p: dict, top: Medium, name: str) -> tuple[float, float]:
+    """Return the texture period (given, or just under the no-diffraction limit at the band's top)."""
+    limit = float(no_diffraction_period_mm(top.wavelength_mm, top.n, "square"))
+    period = p["period_mm"] or largest_micron_below(limit)
+    if p["matching"] != "none" and period >= limit:
+        raise UnusableInput("period_too_large", f"A period of {period:g} mm lets diffraction orders propagate at "
+                            f"{top.freq_ghz:g} GHz in {name} (n = {top.n:.4f}); use a period below {limit:.4f} mm.")
+    return period, limit
+
+
+def _matching_layer(p: dict, centre: Medium, sweep: list[Medium], period: float, printer) -> dict:
+    if p["matching"] == "grooves":
+        return _grooves(p, centre, period, printer)
+    if p["matching"] == "pyramids":
+        return _pyramids(p, sweep, period, printer)
+    return {"matching": "none"}
+
+
+def _limits(period: float, printer) -> tuple[float, float]:
+    """Return the smallest ridge (feature) and groove (gap) the texture may have."""
+    feature = gap = GEOMETRIC_MARGIN * period
+    if printer is not None:
+        feature = max(feature, (printer.rule("min_feature") or {}).get("supported_mm") or 0.0)
+        gap = max(gap, (printer.rule("min_gap") or {}).get("xy_mm") or 0.0)
+    if feature + gap > period:
+        raise UnusableInput("texture_unprintable", f"A {period:g} mm period cannot hold a {feature:g} mm ridge and a "
+                            f"{gap:g} mm groove; choose a finer printer or no matching layer.")
+    return feature, gap
+
+
+def _grooves(p: dict, centre: Medium, period: float, printer) -> dict:
+    """Return the quarter-wave groove layer: fill for eps_eff = n, clipped to the printer; depth lambda/(4 sqrt n)."""
+    n, eps = centre.n, centre.eps_r
+    if p["groove_field"] == "along":
+        fill = (n - 1) / (eps - 1)                    # from eps_par = f eps + (1 - f) = n
+    else:
+        fill = (1 - 1 / n) / (1 - 1 / eps)            # from 1 / eps_perp = f / eps + (1 - f) = 1 / n
+    feature, gap = _limits(period, printer)
+    ridge = float(np.clip(fill * period, feature, period - gap))
+    achieved = ridge / period
+    rule = rytov_parallel if p["groove_field"] == "along" else rytov_perpendicular
+    depth = centre.wavelength_mm / (4 * np.sqrt(n))
+    return {"matching": "grooves", "depth_mm": depth, "fill_design": fill, "fill": achieved,
+            "ridge_width_mm": ridge, "groove_width_mm": period - ridge, "eps_eff_target": n,
+            "eps_eff": float(rule(achieved, eps)), "slices": [(lambda e, a=achieved: rule(a, e), depth)]}
+
+
+def _pyramids(p: dict, sweep: list[Medium], period: float, printer) -> dict:
+    """Return the pyramid layer: base and tip sizes from the printer, height from the band's reflection."""
+    feature, gap = _limits(period, printer)
+    base, tip = period - gap, feature
+    height = p["pyramid_height_mm"] or _pyramid_height(sweep, period, base, tip)
+    if printer is not None and not p["pyramid_height_mm"]:
+        height = float(np.ceil(round(height / printer.layer_height_mm, 6)) * printer.layer_height_mm)
+    return {"matching": "pyramids", "depth_mm": height, "pyramid_base_mm": base, "pyramid_tip_mm": tip,
+            "effective_medium_model": DEFAULT_MODEL, "slices": _pyramid_slices(period, base, tip, height)}
+
+
+def _pyramid_slices(period: float, base: float, tip: float, height: float) -> list:
+    """Return (eps_eff(eps), thickness) slices from the tip down to the base (a staircase of the taper)."""
+    z = (np.arange(PYRAMID_SLICES) + 0.5) / PYRAMID_SLICES
+    side = tip + (base - tip) * z
+    fills = (side / period) ** 2
+    return [(lambda e, f=f: effective_permittivity(f, e), height / PYRAMID_SLICES) for f in fills]
+
+
+def _pyramid_height(sweep: list[Medium], period: float, base: float, tip: float) -> float:
+    """Return the lowest height (steps of lambda0 / 40) keeping each face under the target across the band."""
+    step = sweep[len(sweep) // 2].wavelength_mm / 40
+    best, best_r = step, np.inf
+    for height in step * np.arange(4, 121):
+        worst = _face_worst(sweep, {"slices": _pyramid_slices(period, base, tip, height)})
+        if worst <= PYRAMID_TARGET_REFLECTANCE:
+            return float(height)
+        if worst < best_r:
+            best, best_r = float(height), worst
+    return best
+
+
+def _layers(medium: Medium, slices: list) -> list:
+    """Return (n, thickness) of a matching layer's slices for the material at one frequency."""
+    eps = complex_index(medium.eps_r, medium.tan_delta) ** 2
+    return [(np.sqrt(complex(make(eps))), thickness) for make, thickness in slices]
+
+
+def face_reflectance(medium: Medium, slices: list) -> float:
+    """Return |r|^2 from air through the layer into the bulk material (ABCD with unequal ports, Pozar Table 4.2)."""
+    n_bulk = complex_index(medium.eps_r, medium.tan_delta)
+    k0 = 2 * np.pi / medium.wavelength_mm
+    a, b, c, d = cascade(_layers(medium, slices), k0)
+    r = (a + b * n_bulk - c - d * n_bulk) / (a + b * n_bulk + c + d * n_bulk)
+    return float(abs(r) ** 2)
+
+
+def _face_worst(sweep: list[Medium], layer: dict) -> float:
+    """Return the worst single-face reflectance over the frequencies of the sweep."""
+    return max(face_reflectance(m, layer.get("slices", [])) for m in sweep)
+
+
+def _band_table(band, core: float, layer: dict) -> list[dict]:
+    """Return transmittance and reflectance of the whole window at the band's bottom, centre and top."""
+    rows = []
+    for medium in band:
+        slices = layer.get("slices", [])
+        stack = _layers(medium, slices) + [(complex_index(medium.eps_r, medium.tan_delta), core)]
+        stack += _layers(medium, slices[::-1])
+        s11, s21, _ = s_parameters(*cascade(stack, 2 * np.pi / medium.wavelength_mm))
+        rows.append({"freq_ghz": medium.freq_ghz, "transmittance": float(abs(s21) ** 2),
+                     "reflectance": float(abs(s11) ** 2)})
+    return rows
+
+
+def _window_solid(p: dict, core: float, period: float, layer: dict):
+    """Return the core with its matching layer on both faces, flat back of the lower layer on z = 0."""
+    radius, depth = p["diameter_mm"] / 2, layer.get("depth_mm", 0.0)
+    slab = disc(radius, core, "window", z0_mm=depth)
+    if p["matching"] == "none":
+        return slab
+    texture = _texture(p["matching"], radius, period, layer)
+    # The texture stops short of the rim by two chord tolerances, so its cut faces never coincide
+    # with the core's own rim (coincident faces leave needle triangles in a union).
+    rim = disc(radius - 2 * CHORD_TOL_MM, depth + 2 * SINK_MM, "window", z0_mm=-SINK_MM)
+    texture = intersect(texture, rim, "matching layer")
+    top = checked(texture.translate((0.0, 0.0, depth + core)), "matching layer")
+    bottom = checked(texture.mirror((0.0, 0.0, 1.0)).translate((0.0, 0.0, depth)), "matching layer")
+    return union([slab, top, bottom], "window")
+
+
+def _texture(matching: str, radius: float, period: float, layer: dict):
+    """Return the texture standing on z = 0 (its floor reaching SINK_MM below), uncut, over the aperture."""
+    if matching == "grooves":
+        ridges = _wave(radius, period, layer["ridge_width_mm"], layer["ridge_width_mm"], layer["depth_mm"])
+        return checked(extrude_xz_profile(*ridges, 2 * radius + 2, "grooves").translate((0.0, 0.0, -SINK_MM)), "grooves")
+    x, z = _wave(radius, period, layer["pyramid_base_mm"], layer["pyramid_tip_mm"], layer["depth_mm"])
+    # Two crossed trapezoid ridges intersect in square frustums: the pyramids.
+    prism = extrude_xz_profile(x, z, 2 * radius + 2, "pyramids")
+    return checked(intersect(prism, prism.rotate((0.0, 0.0, 90.0)), "pyramids").translate((0.0, 0.0, -SINK_MM)),
+                   "pyramids")
+
+
+def _wave(radius: float, period: float, base: float, tip: float, height: float) -> tuple[np.ndarray, np.ndarray]:
+    """Return a trapezoid wave z(x) over [-radius - 1, radius + 1]: feet base wide, tops tip wide, on a floor at -SINK_MM."""
+    count = int(np.ceil((radius + 1) / period))
+    centres = (np.arange(-count, count + 1)) * period
+    xs = centres[:, None] + np.array([-base, -tip, tip, base]) / 2
+    zs = np.broadcast_to(np.array([0.0, height, height, 0.0]), xs.shape)
+    x, z = xs.ravel(), zs.ravel()
+    # Touching feet (base = period) repeat a point; the polygon must not.
+    keep = np.r_[True, (np.diff(x) > 1e-12) | (np.diff(z) != 0)]
+    x, z = x[keep], z[keep]
+    return np.r_[x[0] - period, x, x[-1] + period], np.r_[0.0, z, 0.0] + SINK_MM

@@ -1,0 +1,120 @@
+"""What one model of the part (as designed, as printed, or a tolerance variant) does to the beam."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from services.optics.focus import Spot, best_focus_mm, encircled_power, ideal_lens_phase, spot_at
+from services.optics.illumination import Illumination
+from services.optics.propagate import AngularSpectrum
+from services.optics.transmission import CellSParams
+
+# Focusing efficiency: power inside a radius of three spot widths over the incident power, after
+# Arbabi et al., Nat. Commun. 6, 7069 (2015) (from memory); we take three times the diffraction-limited
+# FWHM so a blurred spot does not widen its own iris.
+EFFICIENCY_RADIUS_FWHM = 3.0
+SCAN_FROM, SCAN_TO = 0.1, 2.0  # best-focus search range as a share of the intended focal length
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class Losses:
+    """Illumination-weighted power transmission and reflection per frequency, and weighted S-parameters."""
+
+    transmission: np.ndarray
+    reflection: np.ndarray
+    s11: np.ndarray
+    s21: np.ndarray
+    s22: np.ndarray
+
+    def to_dict(self, spillover_db: float) -> dict:
+        """Return the loss split in dB: absorption_db + reflection_db = transmission_loss_db."""
+        total = -10 * np.log10(self.transmission)
+        reflection = -10 * np.log10(1 - self.reflection)
+        return {
+            "transmission_loss_db": _r(total),
+            "absorption_db": _r(total - reflection),
+            "reflection_db": _r(reflection),
+            "spillover_db": _r(np.full(len(total), spillover_db)),
+            "power_transmission": _r(self.transmission, 6),
+            "power_reflection": _r(self.reflection, 6),
+        }
+
+
+def _r(values, digits: int = 4) -> list[float]:
+    return [round(float(v), digits) for v in values]
+
+
+def losses(sp: CellSParams, illum: Illumination) -> Losses:
+    """Weight each cell's |S21|^2 and |S11|^2 by the illumination power on the clear aperture.
+
+    The complex S-parameters take the power-weighted magnitude and the phase of the weighted mean,
+    so a focusing part's phase spread does not read as lost power.
+    """
+    w = illum.weights / illum.weights.sum()
+    t = (np.abs(sp.s21) ** 2 * w).sum(axis=(1, 2))
+    r = (np.abs(sp.s11) ** 2 * w).sum(axis=(1, 2))
+    r2 = (np.abs(sp.s22) ** 2 * w).sum(axis=(1, 2))
+
+    def weighted(s, power):
+        return np.sqrt(power) * np.exp(1j * np.angle((s * w).sum(axis=(1, 2))))
+
+    return Losses(t, r, weighted(sp.s11, r), weighted(sp.s21, t), weighted(sp.s22, r2))
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class FocusMetrics:
+    """One frequency's focus; distances from the part's far extreme along the axis."""
+
+    best_focus_mm: float
+    fwhm_mm: tuple[float, float]
+    diffraction_limited_fwhm_mm: tuple[float, float]
+    strehl: float
+    focusing_efficiency: float
+    scan_mm: np.ndarray
+    scan_intensity: np.ndarray
+    spot: Spot
+    ideal: Spot
+
+
+def focus_metrics(s21: np.ndarray, illum: Illumination, *, wavelength_mm: float, intended_mm: float,
+                  exit_offset_mm: float, axis_index: tuple[int, int]) -> FocusMetrics:
+    """Propagate illumination x cell transmission from the exit plane and measure the focus.
+
+    exit_offset_mm : how far the model's exit plane lies beyond the part's far extreme (the
+    reference plane), so a distance d from the exit plane is d + offset from the reference.
+    The diffraction-limited reference keeps the same amplitude |field| with a perfect converging
+    phase to the measured best focus; Strehl is the ratio of the two peak intensities.
+    """
+    field = illum.amplitude * illum.aperture * s21
+    asm = AngularSpectrum(field, cell_mm=illum.cell_mm, wavelength_mm=wavelength_mm)
+    lo = max(SCAN_FROM * intended_mm - exit_offset_mm, wavelength_mm)
+    hi = max(SCAN_TO * intended_mm - exit_offset_mm, 2 * lo)
+    d_best, scan_d, scan_i = best_focus_mm(asm, axis_index, lo, hi)
+    spot = spot_at(asm, d_best)
+    radius = np.hypot(*np.meshgrid((np.arange(field.shape[1]) - axis_index[1]) * illum.cell_mm,
+                                   (np.arange(field.shape[0]) - axis_index[0]) * illum.cell_mm))
+    ideal_field = np.abs(field) * ideal_lens_phase(radius, d_best, wavelength_mm)
+    ideal = spot_at(AngularSpectrum(ideal_field, cell_mm=illum.cell_mm, wavelength_mm=wavelength_mm), d_best)
+    iris = EFFICIENCY_RADIUS_FWHM * float(np.mean(ideal.fwhm_mm))
+    inside = encircled_power(np.abs(spot.field) ** 2, illum.cell_mm, spot.peak_index, iris)
+    return FocusMetrics(
+        best_focus_mm=d_best + exit_offset_mm, fwhm_mm=spot.fwhm_mm,
+        diffraction_limited_fwhm_mm=ideal.fwhm_mm, strehl=spot.peak_intensity / ideal.peak_intensity,
+        focusing_efficiency=inside / illum.aperture_power, scan_mm=scan_d + exit_offset_mm,
+        scan_intensity=scan_i, spot=spot, ideal=ideal,
+    )
+
+
+def focus_dict(intended_mm: float, metrics: list[FocusMetrics]) -> dict:
+    """Return the report's ``focus`` section, one entry per frequency."""
+    return {
+        "intended_mm": intended_mm,
+        "best_focus_mm": _r([m.best_focus_mm for m in metrics], 3),
+        "fwhm_mm": [[round(v, 4) for v in m.fwhm_mm] for m in metrics],
+        "diffraction_limited_fwhm_mm": [[round(v, 4) for v in m.diffraction_limited_fwhm_mm] for m in metrics],
+        "fwhm_ratio": _r([np.mean(m.fwhm_mm) / np.mean(m.diffraction_limited_fwhm_mm) for m in metrics]),
+        "strehl": _r([m.strehl for m in metrics]),
+        "focusing_efficiency": _r([m.focusing_efficiency for m in metrics]),
+    }

@@ -1,0 +1,93 @@
+"""How finely to look: the analysis cells and the fine as-designed raster, from wavelength and part size."""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from services.optics.cells import CellGrid
+from services.part import Part
+
+CELL_PER_WAVELENGTH = 4       # cells of lambda/4 or smaller resolve every propagating angle (Goodman: dx <= lambda/2)
+MAX_CELLS_ACROSS = 1024       # the FFT window is twice this: 2048^2 complex128 is 64 MB per array
+MARGIN_CELLS = 2              # void cells around the part so its rim is not the window's edge
+DESIGN_PIXELS_PER_CELL = 8    # fill fractions to 1/64 of a cell are plenty for a zeroth-order effective medium
+DESIGN_MAX_PIXELS_ACROSS = 4096   # 16.8 Mpixel per layer: the fine raster stays near 2 MB packed per distinct layer
+DESIGN_LAYER_PHASE_STEPS = 32     # a design layer delays the phase by at most 2 pi / 32 (uniform error 0.06 rad rms)
+DESIGN_MAX_LAYERS = 800           # bounds the transfer-matrix loop (one pass per distinct run of layers)
+
+
+@dataclass(frozen=True, slots=True)
+class DesignGrid:
+    """The pixel and layer height of the as-designed raster, and why they were chosen."""
+
+    pixel_mm: float
+    layer_height_mm: float
+    note: str
+
+    def to_dict(self) -> dict:
+        return {"pixel_mm": self.pixel_mm, "layer_height_mm": self.layer_height_mm, "why": self.note}
+
+
+def part_axis_mm(part: Part) -> tuple[float, float]:
+    """Return the optical axis: the centre of the part's xy bounds."""
+    lo, hi = part.bounds_mm
+    return float((lo[0] + hi[0]) / 2), float((lo[1] + hi[1]) / 2)
+
+
+def rim_radius_mm(part: Part) -> float:
+    """Return the rim radius: half the smaller xy side (a disc's radius, a square's half side)."""
+    lo, hi = part.bounds_mm
+    return float(min(hi[0] - lo[0], hi[1] - lo[1]) / 2)
+
+
+def analysis_grid(part: Part, printer_pixel_mm: float, wavelength_min_mm: float,
+                  period_mm: float | None = None) -> CellGrid:
+    """Return cells of a whole number of printer pixels, about lambda/4 or smaller (or one pixel).
+
+    A whole number of pixels per cell makes the fill fractions exact at any grid offset. A
+    subwavelength lattice (period between lambda/4 and lambda) gets one period per cell instead:
+    a window of one period averages a periodic pattern exactly wherever it sits, while a smaller
+    cell would alias the lattice into a false phase pattern. Very large parts (over
+    MAX_CELLS_ACROSS cells) get coarser cells rather than an unbounded FFT.
+    """
+    lo, hi = part.bounds_mm
+    extent = float(max(hi[0] - lo[0], hi[1] - lo[1]))
+    m = max(1, math.floor(wavelength_min_mm / CELL_PER_WAVELENGTH / printer_pixel_mm + 1e-9))
+    if period_mm is not None and m * printer_pixel_mm < period_mm <= wavelength_min_mm:
+        m = max(1, round(period_mm / printer_pixel_mm))
+    m = max(m, math.ceil(extent / (MAX_CELLS_ACROSS * printer_pixel_mm)))
+    cell = m * printer_pixel_mm
+    half = ((hi[0] - lo[0]) / 2 + MARGIN_CELLS * cell, (hi[1] - lo[1]) / 2 + MARGIN_CELLS * cell)
+    return CellGrid.around(axis_mm=part_axis_mm(part), half_extent_mm=half, cell_mm=cell)
+
+
+def design_grid(part: Part, *, printer_pixel_mm: float, printer_layer_mm: float, cell_mm: float,
+                wavelength_min_mm: float, n_max: float) -> DesignGrid:
+    """Return a raster well below the printer's pixel and layer, bounded in memory and layer count.
+
+    The pixel is the printer's divided by a whole number (at least 2, more until a cell holds
+    DESIGN_PIXELS_PER_CELL pixels across), so cells hold whole pixels in both models. The layer is
+    the printer's divided by a whole number (at least 2, more until one layer's phase step is
+    below 2 pi / DESIGN_LAYER_PHASE_STEPS). Both stop at the memory and layer-count bounds.
+    """
+    lo, hi = part.bounds_mm
+    extent = float(max(hi[0] - lo[0], hi[1] - lo[1])) + 4 * printer_pixel_mm
+    j_want = max(2, math.ceil(DESIGN_PIXELS_PER_CELL * printer_pixel_mm / cell_mm - 1e-9))
+    j_cap = max(1, math.floor(DESIGN_MAX_PIXELS_ACROSS * printer_pixel_mm / extent))
+    j = min(j_want, j_cap)
+    step_mm = wavelength_min_mm / (DESIGN_LAYER_PHASE_STEPS * max(n_max - 1, 1e-3))
+    i_want = max(2, math.ceil(printer_layer_mm / step_mm - 1e-9))
+    i_cap = max(1, math.floor(DESIGN_MAX_LAYERS * printer_layer_mm / max(float(hi[2]), printer_layer_mm)))
+    i = min(i_want, i_cap)
+    note = (f"printer pixel / {j} and layer / {i}: below the printer's grid"
+            + (", capped by the memory bound" if j < j_want else "")
+            + (", capped by the layer-count bound" if i < i_want else "") + ".")
+    return DesignGrid(printer_pixel_mm / j, printer_layer_mm / i, note)
+
+
+def max_index(eps_r: np.ndarray) -> float:
+    """Return the largest real refractive index over the design frequencies."""
+    return float(np.sqrt(np.max(eps_r)))

@@ -1,0 +1,200 @@
+"""Raster tools shared by the rule families: exact disk morphology, widths, labels and overlaps.
+
+The disk morphology is the shifted boolean AND/OR of shared/references/geometry-bench.md (section 4 and
+the appendix), generalised to every whole-pixel diameter: an odd diameter N is the set of pixel centres
+within N/2 of a pixel centre, an even one the set within N/2 of a pixel corner, so a straight wall N
+pixels wide is exactly the widest wall a disk of diameter N fits in.
+"""
+
+from __future__ import annotations
+
+import math
+from functools import lru_cache
+
+import cv2
+import numpy as np
+
+
+@lru_cache(maxsize=64)
+def disk_rows(diameter_px: int) -> tuple[tuple[int, int, int], ...]:
+    """Return the disk of a whole-pixel diameter as rows (dy, first dx, last dx)."""
+    n = int(diameter_px)
+    if n < 1:
+        raise ValueError("a disk needs a diameter of at least one pixel")
+    radius = n / 2
+    centre = 0.0 if n % 2 else 0.5  # odd: a pixel centre; even: the corner up and right of pixel 0
+    reach = int(math.ceil(radius + 1))
+    rows = []
+    for dy in range(-reach, reach + 1):
+        h2 = radius * radius - (dy - centre) ** 2
+        if h2 < -1e-9:
+            continue
+        w = math.sqrt(max(h2, 0.0)) + 1e-9
+        a, b = math.ceil(centre - w), math.floor(centre + w)
+        if a <= b:
+            rows.append((dy, a, b))
+    return tuple(rows)
+
+
+def _shift_and(out: np.ndarray, src: np.ndarray, dy: int, dx: int, fill: bool) -> None:
+    """AND src shifted so that out[p] &= src[p + (dy, dx)], with ``fill`` beyond the edges."""
+    ny, nx = out.shape
+    ys, yd = (slice(dy, ny), slice(0, ny - dy)) if dy >= 0 else (slice(0, ny + dy), slice(-dy, ny))
+    xs, xd = (slice(dx, nx), slice(0, nx - dx)) if dx >= 0 else (slice(0, nx + dx), slice(-dx, nx))
+    out[yd, xd] &= src[ys, xs]
+    if not fill:
+        _clear_outside(out, dy, dx)
+
+
+def _shift_or(out: np.ndarray, src: np.ndarray, dy: int, dx: int) -> None:
+    """OR src shifted so that out[p] |= src[p - (dy, dx)] (nothing comes in from beyond the edges)."""
+    ny, nx = out.shape
+    ys, yd = (slice(0, ny - dy), slice(dy, ny)) if dy >= 0 else (slice(-dy, ny), slice(0, ny + dy))
+    xs, xd = (slice(0, nx - dx), slice(dx, nx)) if dx >= 0 else (slice(-dx, nx), slice(0, nx + dx))
+    out[yd, xd] |= src[ys, xs]
+
+
+def _clear_outside(out: np.ndarray, dy: int, dx: int) -> None:
+    if dy > 0:
+        out[out.shape[0] - dy:] = False
+    elif dy < 0:
+        out[:-dy] = False
+    if dx > 0:
+        out[:, out.shape[1] - dx:] = False
+    elif dx < 0:
+        out[:, :-dx] = False
+
+
+def erode_disk(mask: np.ndarray, diameter_px: int, *, outside: bool = False) -> np.ndarray:
+    """Return the pixels p where the disk placed at p lies wholly inside ``mask``.
+
+    ``outside`` is the value assumed beyond the array (False for solid, True for void).
+    """
+    rows = disk_rows(diameter_px)
+    runs = _runs(mask, {b - a + 1 for _, a, b in rows}, lambda run, n: _shift_and(run, mask, 0, n - 1, outside))
+    out = np.ones_like(mask)
+    for dy, a, b in rows:
+        _shift_and(out, runs[b - a + 1], dy, a, outside)
+    return out
+
+
+def dilate_disk(mask: np.ndarray, diameter_px: int) -> np.ndarray:
+    """Return the union of the disks placed at every pixel of ``mask`` (Minkowski sum)."""
+    rows = disk_rows(diameter_px)
+    runs = _runs(mask, {b - a + 1 for _, a, b in rows}, lambda run, n: _shift_or(run, mask, 0, n - 1))
+    out = np.zeros_like(mask)
+    for dy, a, b in rows:
+        _shift_or(out, runs[b - a + 1], dy, a)
+    return out
+
+
+def _runs(mask: np.ndarray, lengths: set[int], grow) -> dict[int, np.ndarray]:
+    """Return {length: mask combined along x over that many pixels}, growing one pixel at a time."""
+    longest = max(lengths)
+    run = mask.copy()
+    out = {}
+    for n in range(1, longest + 1):
+        if n > 1:
+            grow(run, n)
+        if n in lengths:
+            out[n] = run if n == longest else run.copy()
+    return out
+
+
+def open_disk(mask: np.ndarray, diameter_px: int, *, outside: bool = False) -> np.ndarray:
+    """Return the union of every disk of the diameter that fits inside ``mask``."""
+    return dilate_disk(erode_disk(mask, diameter_px, outside=outside), diameter_px)
+
+
+def limit_px(limit_mm: float, pixel_mm: float) -> int:
+    """Return a limit as a whole-pixel diameter, rounded down: the grid cannot tell finer widths apart."""
+    return max(1, int(math.floor(limit_mm / pixel_mm + 1e-6)))
+
+
+def nearest_void(mask: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Return (distance to the nearest void pixel centre, flat index of that pixel) for every pixel.
+
+    Void beyond the array edge does not count; pad the mask with void first when it matters.
+    """
+    if mask.all():
+        return np.full(mask.shape, np.inf, np.float32), np.zeros(mask.shape, np.int64)
+    dist, labels = cv2.distanceTransformWithLabels(
+        mask.view(np.uint8), cv2.DIST_L2, 5, labelType=cv2.DIST_LABEL_PIXEL)
+    zeros = np.flatnonzero(~mask.ravel())  # OpenCV numbers the void pixels in row-major order
+    return dist, zeros[labels.ravel() - 1].reshape(mask.shape)
+
+
+def ray_widths(mask: np.ndarray, rows: np.ndarray, cols: np.ndarray, near: np.ndarray, cap_px: int) -> np.ndarray:
+    """Return the width across ``mask`` through each pixel, along the line from its nearest void pixel.
+
+    The width counts the pixels from the near void to the far void: a straight wall n pixels wide
+    reads n at every pixel, whatever its parity; values above ``cap_px`` come back as cap_px + 1.
+    """
+    ny, nx = mask.shape
+    vy, vx = np.divmod(near[rows, cols], nx)
+    dy, dx = (rows - vy).astype(np.float64), (cols - vx).astype(np.float64)
+    d_near = np.hypot(dy, dx)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        uy, ux = dy / d_near, dx / d_near
+    far = np.full(rows.shape, float(cap_px + 2))
+    open_ = np.ones(rows.shape, bool)
+    for t in range(1, cap_px + 2):
+        ry = np.rint(rows + t * uy).astype(np.int64)
+        rx = np.rint(cols + t * ux).astype(np.int64)
+        inside = (ry >= 0) & (ry < ny) & (rx >= 0) & (rx < nx)
+        solid = np.zeros(rows.shape, bool)
+        solid[inside] = mask[ry[inside], rx[inside]]
+        hit = open_ & ~solid
+        far[hit] = t
+        open_ &= solid
+        if not open_.any():
+            break
+    return np.minimum(d_near + far - 1.0, cap_px + 1.0)
+
+
+def label(mask: np.ndarray, connectivity: int = 8) -> tuple[int, np.ndarray]:
+    """Return (number of labels including background 0, int32 labels)."""
+    count, labels = cv2.connectedComponents(mask.view(np.uint8), connectivity=connectivity, ltype=cv2.CV_32S)
+    return int(count), labels
+
+
+def per_label_max(values: np.ndarray, labels: np.ndarray, count: int, where: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Return (max of values, flat index of a pixel holding it) per label over the pixels ``where``."""
+    idx = np.flatnonzero(where.ravel())
+    lab = labels.ravel()[idx]
+    val = values.ravel()[idx]
+    best = np.full(count, -np.inf)
+    np.maximum.at(best, lab, val)
+    at = np.full(count, -1, np.int64)
+    top = idx[val >= best[lab]]
+    at[labels.ravel()[top][::-1]] = top[::-1]  # reversed so that the first such pixel wins
+    return best, at
+
+
+def ridge(dist: np.ndarray, mask: np.ndarray) -> np.ndarray:
+    """Return the pixels of ``mask`` whose distance is a local maximum (3 x 3): where maxima live."""
+    grown = cv2.dilate(dist, np.ones((3, 3), np.uint8))
+    return mask & (dist >= grown)
+
+
+def overlap_pairs(a: np.ndarray, b: np.ndarray, where: np.ndarray | None = None) -> np.ndarray:
+    """Return the distinct (label in a, label in b) pairs of pixels where both are non-zero, as (k, 2)."""
+    both = (a > 0) & (b > 0)
+    if where is not None:
+        both &= where
+    idx = np.flatnonzero(both.ravel())
+    if idx.size == 0:
+        return np.zeros((0, 2), np.int64)
+    keys = a.ravel()[idx].astype(np.int64) << 32 | b.ravel()[idx].astype(np.int64)
+    keys = keys[np.r_[True, keys[1:] != keys[:-1]]]  # neighbours along a row mostly repeat: drop them first
+    keys = np.unique(keys)
+    return np.column_stack([keys >> 32, keys & 0xFFFFFFFF])
+
+
+def bbox(mask: np.ndarray) -> tuple[int, int, int, int] | None:
+    """Return (row0, row1, col0, col1), half-open, of the true pixels, or None."""
+    rows = np.flatnonzero(mask.any(axis=1))
+    if rows.size == 0:
+        return None
+    cols = np.flatnonzero(mask[rows[0]:rows[-1] + 1].any(axis=0))
+    return int(rows[0]), int(rows[-1]) + 1, int(cols[0]), int(cols[-1]) + 1

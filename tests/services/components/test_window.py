@@ -1,0 +1,96 @@
+"""Windows: half-wave slabs, quarter-wave groove layers and pyramid layers, against the slab references."""
+
+import numpy as np
+import pytest
+import tmm
+
+from services.components import build_component
+from services.errors import UnusableInput
+
+from .conftest import N, solid_of, thickness_at, wavelength
+
+
+def _window(resin, printer=None, **params):
+    band = {"freq_min_ghz": 90.0, "freq_max_ghz": 110.0}
+    return build_component("window", {**band, **params}, material=resin, printer=printer)
+
+
+def test_a_bare_slab_transmits_as_the_reference_slab(resin):
+    """2 mm, eps 2.8, tan delta 0.02: |S21|^2 = 0.750801 at 75 GHz and 0.678039 at 110 GHz (optics.md 2.3)."""
+    component = _window(resin, thickness_mm=2.0, freq_min_ghz=75.0, freq_max_ghz=110.0)
+    band = component.derived["band"]
+    assert [row["freq_ghz"] for row in band] == [75.0, 92.5, 110.0]
+    assert band[0]["transmittance"] == pytest.approx(0.750801, abs=5e-7)
+    assert band[2]["transmittance"] == pytest.approx(0.678039, abs=5e-7)
+    assert component.part.bbox_mm[2] == pytest.approx(2.0, abs=1e-9)
+
+
+def test_the_default_core_is_a_half_wave_multiple(resin):
+    """lambda / (2 n) = 0.8958 mm at 100 GHz (optics.md 2.2); the thinnest multiple of at least 1 mm is two."""
+    component = _window(resin)
+    assert component.derived["half_wave_order"] == 2
+    assert component.derived["thickness_mm"] == pytest.approx(2 * 0.8958, abs=1e-4)
+    assert component.derived["band"][1]["reflectance"] < 1e-3
+
+
+@pytest.mark.parametrize(("field", "fill"), [("along", 0.3741), ("across", 0.6259)])
+def test_groove_layers_are_quarter_wave_layers_of_index_sqrt_n(resin, field, fill):
+    """n_m = sqrt(n) = 1.29357, depth lambda / (4 n_m) = 0.5794 mm at 100 GHz; fill 0.3741 with E along the
+    grooves and 0.6259 across them (optics.md sections 2.2 and 13, Rytov 1956)."""
+    component = _window(resin, matching="grooves", groove_field=field)
+    d = component.derived
+    assert d["depth_mm"] == pytest.approx(0.5794, abs=5e-5)
+    assert np.sqrt(d["eps_eff"]) == pytest.approx(1.29357, abs=5e-6)
+    assert d["fill"] == pytest.approx(fill, abs=5e-5)
+    assert d["ridge_width_mm"] == pytest.approx(fill * d["period_mm"], abs=1e-4)
+    # The mesh: through a ridge the window is the core plus both layers, through a groove only the core.
+    period, ridge = d["period_mm"], d["ridge_width_mm"]
+    through = thickness_at(component.part, np.array([[0.0013, 0.37], [period / 2 + 0.0013, 0.37]]))
+    assert through == pytest.approx([d["thickness_mm"] + 2 * d["depth_mm"], d["thickness_mm"]], abs=1e-6)
+    assert ridge < period / 2 or field == "across"
+    # Matched at the centre: the whole window reflects almost nothing there (tmm with the layer's index).
+    n_m = np.sqrt(N)
+    lam = wavelength(100.0)
+    ref = tmm.coh_tmm("s", [1, n_m, N, n_m, 1], [np.inf, lam / (4 * n_m), d["thickness_mm"], lam / (4 * n_m), np.inf], 0, lam)
+    assert ref["R"] < 1e-20 and d["band"][1]["reflectance"] < 1e-4
+
+
+def test_a_coarse_printer_clips_the_grooves_and_the_match_degrades(resin, coarse_printer):
+    """At 300 GHz the period is 0.597 mm; with E across the grooves the design wants a 0.374 mm ridge and a
+    0.223 mm groove, but a 0.3 mm groove is the least this printer keeps open: ridge 0.297 mm, fill 0.4975."""
+    component = _window(resin, coarse_printer, freq_min_ghz=270.0, freq_max_ghz=300.0, matching="grooves",
+                        groove_field="across", diameter_mm=20.0)
+    d = component.derived
+    assert d["period_mm"] == pytest.approx(0.597, abs=1e-9)
+    assert d["groove_width_mm"] == pytest.approx(0.3, abs=1e-9)
+    assert d["fill"] == pytest.approx(0.297 / 0.597, abs=1e-9) and d["fill_design"] == pytest.approx(0.6259, abs=5e-5)
+    assert d["max_face_reflectance"] > 0.001
+
+
+def test_pyramid_layers_keep_each_face_under_one_percent(resin):
+    """The default pyramid height keeps every face's reflection under 1 % across 90-110 GHz, against 6.3 % for
+    a bare face (R = ((n - 1)/(n + 1))^2 = 0.063440, optics.md section 2.2)."""
+    bare = _window(resin).derived["max_face_reflectance"]
+    assert bare == pytest.approx(0.063440, abs=2e-3)
+    component = _window(resin, matching="pyramids")
+    d = component.derived
+    assert d["max_face_reflectance"] <= 0.01
+    assert 0.1 * wavelength(100.0) < d["depth_mm"] < 3 * wavelength(100.0)
+    # On the mesh: the tip of a pyramid stands the full height above the core.
+    through = thickness_at(component.part, np.array([[0.0011, 0.0007]]))
+    assert through[0] == pytest.approx(d["thickness_mm"] + 2 * d["depth_mm"], abs=1e-6)
+
+
+def test_it_refuses_a_band_upside_down(resin):
+    """freq_max_ghz must lie above freq_min_ghz."""
+    with pytest.raises(UnusableInput, match="must lie above"):
+        _window(resin, freq_min_ghz=110.0, freq_max_ghz=90.0)
+
+
+@pytest.mark.parametrize("matching", ["none", "grooves", "pyramids"])
+def test_every_window_is_a_closed_solid(resin, matching):
+    """Watertight, NoError on re-import, one body, intake finds nothing."""
+    part = _window(resin, matching=matching, diameter_mm=30.0).part
+    assert part.watertight and part.bodies == 1 and part.findings == () and part.volume_mm3 > 0
+    assert solid_of(part).volume() == pytest.approx(part.volume_mm3, rel=1e-9)
+    assert part.parameters["matching"] == matching and part.parameters["freq_ghz"] == 100.0

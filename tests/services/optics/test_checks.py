@@ -1,0 +1,105 @@
+"""Rules phase_error (Marechal) and period (grating equation)."""
+
+from dataclasses import replace
+
+import numpy as np
+import pytest
+
+from services.layers import LayerStack, build_layer_stack
+from services.optics import optics_report
+from services.optics.cells import CellGrid
+from services.optics.checks import (
+    detect_period_mm, period_finding, phase_error, phase_error_finding, safe_period_mm,
+)
+from services.optics.gaussian import field as gaussian_field
+from services.optics.materials import rf_values
+from services.optics.transmission import cell_sparams
+from services.settings import OpticsSettings
+from tests.services.optics.helpers import hyperbolic_lens, material, printer
+
+N = float(np.sqrt(2.8))
+
+
+@pytest.fixture(scope="module")
+def lens():
+    """A 20 mm plano-hyperbolic lens, f = 40 mm, n = sqrt(2.8): the sag spans 18 layers of 0.1 mm."""
+    return hyperbolic_lens(10.0, N, 40.0, base_mm=1.0, points=200, segments=128)
+
+
+def test_layer_steps_of_a_tenth_of_a_millimetre_pass_at_100_ghz(lens):
+    """0.1 mm steps at 100 GHz: sigma = 2 pi (n-1) 0.1 / sqrt(12) / lambda, Strehl about 0.998 (Marechal; optics.md 5)."""
+    bay = printer(pixel_mm=0.1, layer_mm=0.1)
+    stack = build_layer_stack(lens, pixel_mm=bay.pixel_mm, layer_height_mm=bay.layer_height_mm)
+    result = optics_report(part=lens, printed=stack, material=material(), printer=bay,
+                           settings=OpticsSettings(freqs_ghz=(100.0,)))
+    strehl = result.to_dict()["phase_error"]["strehl"][0]
+    assert 0.995 <= strehl < 1.0
+    assert not [f for f in result.findings if f.rule == "phase_error"]
+
+
+def _thickness_error_stack(design: LayerStack, layers: int, block_mm: float) -> LayerStack:
+    """Return the design with every column thicker or thinner by ``layers`` in a checkerboard of blocks."""
+    x = design.x_centres_mm
+    y = design.y_centres_mm
+    thicker = ((np.floor(x / block_mm)[None, :] + np.floor(y / block_mm)[:, None]) % 2) == 0
+    empty = np.zeros(design.shape, dtype=bool)
+    masks = []
+    for k in range(design.count + layers):
+        up = design.layer(max(k - layers, 0))
+        down = design.layer(k + layers) if k + layers < design.count else empty
+        masks.append(np.where(thicker, up, down))
+    return LayerStack.from_masks(masks, pixel_mm=design.pixel_mm, layer_height_mm=design.layer_height_mm,
+                                 origin_mm=design.origin_mm)
+
+
+def test_fifty_micron_rms_thickness_error_at_1_thz_is_flagged(lens):
+    """+-50 um thickness error at 1 THz: sigma = 0.706 rad, Strehl about 0.61 (Marechal; optics.md 6 [C]) -> caution."""
+    design = build_layer_stack(lens, pixel_mm=0.0375, layer_height_mm=0.025)
+    printed = _thickness_error_stack(design, layers=2, block_mm=2.0)
+    rf = rf_values(material(), [1000.0])
+    grid = CellGrid.around(axis_mm=(0.0, 0.0), half_extent_mm=(10.2, 10.2), cell_mm=0.075)
+    weights = gaussian_field(grid.x_mm[None, :], grid.y_mm[:, None], 8.0) ** 2 * (grid.radius_mm() < 10.0)
+    err = phase_error(cell_sparams(printed, grid, rf)["nominal"].s21, cell_sparams(design, grid, rf)["nominal"].s21,
+                      weights)
+    assert err.rms_rad[0] == pytest.approx(2 * np.pi * (N - 1) * 0.05 / 0.299792458, rel=0.05)
+    assert err.strehl[0] == pytest.approx(0.6078, abs=0.03)
+    found = phase_error_finding(err, rf.freqs_ghz, blocker_strehl=0.5)
+    assert found.severity == "caution" and found.limit == 0.8
+    assert phase_error_finding(err, rf.freqs_ghz, blocker_strehl=0.7).severity == "blocker"
+
+
+def test_safe_period_follows_the_grating_equation():
+    """Lambda < lambda / (n_max + sin theta): 1.7916 mm at 100 GHz for n 1.6733, 1.3794 mm at 30 deg (optics.md 7)."""
+    lam = 299.792458 / 100.0
+    assert safe_period_mm(lam, 1.6733) == pytest.approx(1.7916, abs=1e-4)
+    assert safe_period_mm(lam, 1.6733, np.sin(np.radians(30))) == pytest.approx(1.3794, abs=1e-4)
+    assert period_finding(1.0, "declared", lam, 1.6733, 100.0) is None
+    found = period_finding(2.0, "declared", lam, 1.6733, 100.0)
+    assert found.severity == "caution" and found.limit == pytest.approx(1.7916, abs=1e-4)
+
+
+def _pillar_mask(period_mm: float, pixel_mm: float = 0.05, size_mm: float = 30.0, fill: float = 0.3):
+    x = (np.arange(int(size_mm / pixel_mm)) + 0.5) * pixel_mm
+    u = (x % period_mm) - period_mm / 2
+    r2 = u[None, :] ** 2 + u[:, None] ** 2
+    return r2 <= fill * period_mm**2 / np.pi
+
+
+def test_it_detects_a_pillar_lattice_period_and_ignores_a_disc():
+    """The strongest lattice peak gives the period; a plain disc has none."""
+    assert detect_period_mm(_pillar_mask(2.0), 0.05, 4.5) == pytest.approx(2.0, rel=0.03)
+    assert detect_period_mm(_pillar_mask(0.8), 0.05, 4.5) == pytest.approx(0.8, rel=0.03)
+    x = (np.arange(600) - 300) * 0.05
+    disc = x[None, :] ** 2 + x[:, None] ** 2 < 12.0**2
+    assert detect_period_mm(disc, 0.05, 4.5) is None
+
+
+def test_the_report_cautions_a_diffracting_declared_period(lens):
+    """A parametric part declaring period_mm = 2.5 at 100 GHz gets a period caution with the safe period."""
+    declared = replace(lens, parameters={"period_mm": 2.5})
+    bay = printer(pixel_mm=0.1, layer_mm=0.1)
+    stack = build_layer_stack(declared, pixel_mm=0.1, layer_height_mm=0.1)
+    result = optics_report(part=declared, printed=stack, material=material(), printer=bay,
+                           settings=OpticsSettings(freqs_ghz=(90.0, 100.0)))
+    (found,) = [f for f in result.findings if f.rule == "period"]
+    assert found.measured == 2.5 and found.limit == pytest.approx(1.7916, abs=1e-3)
