@@ -74,9 +74,10 @@ def build_layer_stack(
     grid = _Grid.around(tris, pixel_mm, part.name)
     count = _layer_count(float(tris[:, :, 2].max()), layer_height_mm, part.name)
     heights = (np.arange(count) + 0.5) * layer_height_mm
-    todo = np.flatnonzero(_changed_layers(tris, heights, _VERTICAL_TOL_PX * pixel_mm))
-    slicer = _Slicer(tris, heights)
-    del tris
+    normals = _normals(tris)
+    todo = np.flatnonzero(_changed_layers(tris, normals, heights, _VERTICAL_TOL_PX * pixel_mm))
+    slicer = _Slicer(tris, normals, heights)
+    del tris, normals
     builder = _StackBuilder((grid.ny, grid.nx))
     report = _Throttle(progress)
     for ks in _chunks(todo, slicer.pairs_per_layer(count), grid.layers_per_chunk()):
@@ -264,7 +265,17 @@ class _Grid:
         return max(1, _MAX_ACC_BYTES // ((self.ny + 1) * self.nx))
 
 
-def _changed_layers(tris: np.ndarray, heights: np.ndarray, tol_mm: float) -> np.ndarray:
+def _normals(tris: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Return the x, y, z components of (B - A) x (C - A), the outward normals of the file's winding."""
+    e1, e2 = tris[:, 1] - tris[:, 0], tris[:, 2] - tris[:, 0]
+    return (
+        e1[:, 1] * e2[:, 2] - e1[:, 2] * e2[:, 1],
+        e1[:, 2] * e2[:, 0] - e1[:, 0] * e2[:, 2],
+        e1[:, 0] * e2[:, 1] - e1[:, 1] * e2[:, 0],
+    )
+
+
+def _changed_layers(tris: np.ndarray, normals: tuple, heights: np.ndarray, tol_mm: float) -> np.ndarray:
     """Return a bool per layer: False where the slice provably equals the one below.
 
     Layer k can differ from k-1 only if a vertex lies in (z_{k-1}, z_k] or a sloped face spans both
@@ -275,11 +286,11 @@ def _changed_layers(tris: np.ndarray, heights: np.ndarray, tol_mm: float) -> np.
     count = len(heights)
     changed = np.zeros(count + 1, dtype=bool)
     changed[np.searchsorted(heights, tris[:, :, 2].ravel(), "left")] = True
-    n = np.cross(tris[:, 1] - tris[:, 0], tris[:, 2] - tris[:, 0])
+    n_x, n_y, n_z = normals
     z = tris[:, :, 2]
     z_min = np.minimum(np.minimum(z[:, 0], z[:, 1]), z[:, 2])
     z_max = np.maximum(np.maximum(z[:, 0], z[:, 1]), z[:, 2])
-    sloped = (z_max - z_min) * np.abs(n[:, 2]) > tol_mm * np.hypot(n[:, 0], n[:, 1])
+    sloped = (z_max - z_min) * np.abs(n_z) > tol_mm * np.hypot(n_x, n_y)
     first = np.searchsorted(heights, z_min[sloped], "right") + 1
     stop = np.searchsorted(heights, z_max[sloped], "right")
     spans = stop > first
@@ -310,7 +321,7 @@ class _Slicer:
     cracks (bench section 2, MeshSlicer2).
     """
 
-    def __init__(self, tris: np.ndarray, heights: np.ndarray) -> None:
+    def __init__(self, tris: np.ndarray, normals: tuple, heights: np.ndarray) -> None:
         order = np.argsort(tris[:, :, 2], axis=1, kind="stable")
         st = np.take_along_axis(tris, order[:, :, None], axis=1)
         first = np.searchsorted(heights, st[:, 0, 2], "right")
@@ -318,7 +329,7 @@ class _Slicer:
         keep = np.flatnonzero(stop > first)
         self.first, self.stop = first[keep], stop[keep]
         st = st[keep]
-        self.sign = _winding_sign(tris[keep], st)
+        self.sign = _winding_sign(normals[0][keep], normals[1][keep], st)
         self.long = _edge_table(st[:, 0], st[:, 2])
         self.short = np.stack([_edge_table(st[:, 0], st[:, 1]), _edge_table(st[:, 1], st[:, 2])], axis=1)
         self.short = self.short.reshape(-1, 5)  # row 2t: A-B of triangle t, row 2t + 1: B-C
@@ -371,17 +382,16 @@ def _edge_table(lo: np.ndarray, hi: np.ndarray) -> np.ndarray:
     return np.column_stack([lo[:, 2], lo[:, 0], lo[:, 1], slope])
 
 
-def _winding_sign(tris: np.ndarray, st: np.ndarray) -> np.ndarray:
+def _winding_sign(n_x: np.ndarray, n_y: np.ndarray, st: np.ndarray) -> np.ndarray:
     """Return +1 where a cut runs from the long edge towards B with the solid on its left, else -1.
 
     The solid lies to the left of d = z x n (n the outward normal of the file's winding). Every cut
     of one triangle is parallel to B - M, M the point of A-C at B's height, so one sign serves all.
     """
-    n = np.cross(tris[:, 1] - tris[:, 0], tris[:, 2] - tris[:, 0])
     a, b, c = st[:, 0], st[:, 1], st[:, 2]
     frac = (b[:, 2] - a[:, 2]) / (c[:, 2] - a[:, 2])
     v = b[:, :2] - (a[:, :2] + frac[:, None] * (c[:, :2] - a[:, :2]))
-    along = v[:, 0] * -n[:, 1] + v[:, 1] * n[:, 0]
+    along = v[:, 0] * -n_y + v[:, 1] * n_x
     return np.sign(along).astype(np.int8)
 
 

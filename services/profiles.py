@@ -141,3 +141,16 @@ def _validate_material(m: Material) -> None:
     for p in m.rf:
         if p.eps_r < 1 or p.tan_delta < 0:
             raise UnusableInput("bad_material", f"Material {m.slug!r}: permittivity below 1 or negative loss tangent at {p.freq_ghz} GHz.")
+
+
+def check_pairing(printer: PrinterProfile, material: Material) -> None:
+    """Refuse a material the printer's process cannot print (e.g. a filament on a resin printer)."""
+    if printer.process in material.processes:
+        return
+    if not material.processes:
+        raise UnusableInput("material_not_printable",
+                            f"{material.name} is a reference material that is not "
+                            f"printed; choose a printable material for {printer.name}.")
+    raise UnusableInput("material_mismatch",
+                        f"{material.name} is not made for {printer.process.replace('_', ' ')}; "
+                        f"choose a material for {printer.name}.")

@@ -12,7 +12,7 @@ from dataclasses import dataclass, field
 from services import layers, pictures
 from services.findings import Finding, sorted_by_severity, verdict_of
 from services.part import Part
-from services.profiles import Material, PrinterProfile
+from services.profiles import Material, PrinterProfile, check_pairing
 from services.rules import run_rules
 from services.rules.build_fit import check_build_fit
 from services.safety import cautions_for
@@ -95,6 +95,7 @@ def build_report(*, part: Part, printer: PrinterProfile, material: Material,
                  settings: CheckSettings | None = None, progress: Progress | None = None) -> Report:
     """Check a part on one printer and material and return the report."""
     settings = settings or CheckSettings()
+    check_pairing(printer, material)  # before the slicing, not after it
     stages = _Stages(progress)
     oriented = stages.run("reading", lambda p: layers.orient_part(part, settings.orientation))
     stack = stages.run("slicing", lambda p: layers.build_layer_stack(

@@ -18,7 +18,7 @@ from services.estimate.quote import Cost, CostLine, QuantityRow, job_cost, quant
 from services.estimate.time_models import LayerLoads, build_time_s, format_duration, model_of
 from services.layers import LayerStack
 from services.part import Part
-from services.profiles import Material, PrinterProfile
+from services.profiles import Material, PrinterProfile, check_pairing
 
 __all__ = ["Calibration", "Cost", "CostLine", "Estimate", "LayerLoads", "MaterialUse", "Placement",
            "QuantityRow", "estimate_print", "fit_calibration", "layer_loads", "pack_rectangles"]
@@ -78,7 +78,7 @@ def estimate_print(*, stack: LayerStack, part: Part, printer: PrinterProfile, ma
     ``support_volume_mm3`` is the volume under overhangs that needs support (before the support
     density factor), when the overhang rule measured it; otherwise the stack is projected.
     """
-    _check_pairing(printer, material)
+    check_pairing(printer, material)
     model = model_of(printer)
     rates = rates_of(printer, material)
     loads, support_source = layer_loads(stack, printer, support_volume_mm3)
@@ -132,18 +132,6 @@ def _rescaled(columns: np.ndarray, volume_mm3: float, layer_height_mm: float) ->
     if projected > 0:
         return columns * (volume_mm3 / projected)
     return np.full(len(columns), volume_mm3 / (len(columns) * layer_height_mm))
-
-
-def _check_pairing(printer: PrinterProfile, material: Material) -> None:
-    if printer.process in material.processes:
-        return
-    if not material.processes:
-        raise UnusableInput("material_not_printable",
-                            f"{material.name} is a reference material that is not "
-                            f"printed; choose a printable material for {printer.name}.")
-    raise UnusableInput("material_mismatch",
-                        f"{material.name} is not made for {printer.process.replace('_', ' ')}; "
-                        f"choose a material for {printer.name}.")
 
 
 def _footprint_mm(stack: LayerStack) -> tuple[float, float]:

@@ -103,3 +103,10 @@ def test_it_keeps_uploads_under_generated_names(alice, seeded):
     design = services.design_create(owner=alice, name="../../etc/passwd\x00.stl", data=box_stl())
     assert design.stored_name.startswith("designs/") and ".." not in design.stored_name
     assert design.name == "passwd.stl"
+
+
+def test_it_refuses_a_filament_on_a_resin_printer(alice_client, seeded):
+    """A material the printer's process cannot print is an error beside the material field."""
+    response, delay = _upload(alice_client, material="pla")
+    assert response.status_code == 400 and "not made for vat photopolymerisation" in response.content.decode()
+    assert not delay.called

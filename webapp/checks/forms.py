@@ -4,6 +4,7 @@ from django import forms
 
 from services.errors import UnusableInput
 from services.intake import UNITS
+from services.profiles import check_pairing
 from services.settings import ORIENTATIONS, CheckSettings, OpticsSettings
 from webapp.catalogue.selectors import material_list_active, printer_list_active
 
@@ -39,6 +40,11 @@ class CheckOptionsForm(forms.Form):
         except UnusableInput as exc:
             field = {"bad_frequency": "freqs", "bad_quantity": "quantities"}.get(exc.code, None)
             self.add_error(field, exc.message)
+        if data.get("printer") and data.get("material"):
+            try:
+                check_pairing(data["printer"].snapshot(), data["material"].snapshot())
+            except UnusableInput as exc:
+                self.add_error("material", exc.message)
         return data
 
 
