@@ -126,19 +126,26 @@ def all_cases(repeat: int) -> int:
 
 
 def print_table(results: list[dict]) -> None:
-    """Print one markdown row per case: median and range of the repeats."""
+    """Print one markdown row per case: medians (and the range of the timed step) over the repeats."""
     groups: dict[tuple, list[dict]] = {}
     for r in results:
         groups.setdefault((r["case"], r["px_mm"], r["dz_mm"], r["mode"]), []).append(r)
-    print("| part | px / dz (um) | mode | triangles | layers (distinct) | time s: median (range) | peak RSS MB | store MB |")
-    print("|---|---|---|---|---|---|---|---|")
+    print("| part | px / dz (um) | mode | triangles | layers (distinct) | read s | stack or slice s: median (range) "
+          "| total s | peak RSS MB | store MB |")
+    print("|---|---|---|---|---|---|---|---|---|---|")
     for (case, px, dz, mode), runs in groups.items():
-        key = "total_s" if mode == "stack" else "slice_s"
+        first, key = ("read_s", "stack_s") if mode == "stack" else ("load_s", "slice_s")
         t = sorted(r[key] for r in runs)
         layers = f"{runs[0]['layers']} ({runs[0]['distinct']})" if mode == "stack" else str(runs[0]["layers"])
         print(f"| {case} | {px * 1000:g} / {dz * 1000:g} | {mode} | {runs[0]['triangles']:,} | {layers} | "
-              f"{t[len(t) // 2]:.2f} ({t[0]:.2f}-{t[-1]:.2f}) | {max(r['peak_rss_mb'] for r in runs)} | "
+              f"{median(r[first] for r in runs):.2f} | {t[len(t) // 2]:.2f} ({t[0]:.2f}-{t[-1]:.2f}) | "
+              f"{median(r[first] + r[key] for r in runs):.2f} | {max(r['peak_rss_mb'] for r in runs)} | "
               f"{runs[0].get('store_mb', '')} |")
+
+
+def median(values) -> float:
+    v = sorted(values)
+    return v[len(v) // 2]
 
 
 def main(argv: list[str]) -> int:
@@ -148,7 +155,11 @@ def main(argv: list[str]) -> int:
     parser.add_argument("--dz", type=float, default=0.05)
     parser.add_argument("--mode", choices=("stack", "manifold"), default="stack")
     parser.add_argument("--repeat", type=int, default=3, help="fresh runs per case (all cases only)")
+    parser.add_argument("--table", action="store_true", help="print the table of the last saved results")
     args = parser.parse_args(argv)
+    if args.table:
+        print_table(json.loads((ROOT / "benchmarks" / "results_layers.json").read_text()))
+        return 0
     return one_case(args) if args.case else all_cases(args.repeat)
 
 

@@ -92,8 +92,7 @@ def resolve_material(args) -> Material:
 
 
 def settings_from(args) -> CheckSettings:
-    freqs = args.freq_ghz if isinstance(args.freq_ghz, (str, type(None))) else str(args.freq_ghz)
-    optics = OpticsSettings(freqs_ghz=parse_freqs(freqs), focal_length_mm=args.focal_length_mm,
+    optics = OpticsSettings(freqs_ghz=parse_freqs(args.freq_ghz), focal_length_mm=args.focal_length_mm,
                             edge_taper_db=args.edge_taper_db, beam_waist_mm=args.beam_waist_mm)
     return CheckSettings(orientation=args.orientation, quantities=tuple(args.quantity or (1, 5, 10, 25)), optics=optics)
 

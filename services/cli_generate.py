@@ -48,7 +48,7 @@ def _bool(text: str) -> bool:
 def cmd_generate(args) -> int:
     """Build the part, write it, and with --check run the usual check on it."""
     from services import catalogue
-    from services.cli import EXIT_OK, print_results, resolve_printer, resolve_material, settings_from
+    from services.cli import EXIT_OK, print_results, resolve_material, resolve_printer
     from services.components import build_component, component_parameters, export_mesh
     from services.report import build_report
 
@@ -69,11 +69,22 @@ def cmd_generate(args) -> int:
         print(json.dumps({"path": str(out), "kind": args.kind, "derived": component.derived}, indent=2, default=float)
               if args.format == "json" else f"wrote {out} ({len(component.part.faces):,} triangles)")
         return EXIT_OK
-    settings = settings_from(args)
-    if settings.optics.focal_length_mm is None and component.focal_length_mm:
-        from dataclasses import replace
-
-        settings = replace(settings, optics=replace(settings.optics, focal_length_mm=component.focal_length_mm))
+    settings = _check_settings(args, component)
     report = build_report(part=component.part, printer=printer, material=material, settings=settings)
     print_results([{"path": str(out), **report.to_dict()}], args.format)
     return EXIT_OK
+
+
+def _check_settings(args, component):
+    """Return check settings whose optics look at the part's own design frequency (or band) and focus."""
+    from services.settings import CheckSettings, OpticsSettings
+
+    params = component.part.parameters or {}
+    if params.get("freq_ghz"):
+        freqs = (float(params["freq_ghz"]),)
+    else:
+        lo, hi = float(params["freq_min_ghz"]), float(params["freq_max_ghz"])
+        freqs = tuple(round(lo + i * (hi - lo) / 4, 6) for i in range(5))
+    optics = OpticsSettings(freqs_ghz=freqs, focal_length_mm=component.focal_length_mm,
+                            edge_taper_db=args.edge_taper_db, beam_waist_mm=args.beam_waist_mm)
+    return CheckSettings(orientation=args.orientation, quantities=tuple(args.quantity or (1, 5, 10, 25)), optics=optics)

@@ -85,24 +85,38 @@ def erode_disk(mask: np.ndarray, diameter_px: int, *, outside: bool = False) -> 
     """
     rows = disk_rows(diameter_px)
     pad = _reach(rows)
-    words = _pack(mask, pad, outside)
-    runs = _runs(words, {b - a + 1 for _, a, b in rows}, np.bitwise_and, 1)
-    out = np.full_like(words, np.uint64(0xFFFFFFFFFFFFFFFF))
-    for dy, a, b in rows:
-        _rows_into(out, _shift_x(runs[b - a + 1], a), dy, np.bitwise_and)
-    return _unpack(out, mask.shape, pad)
+    return _unpack(_erode_words(_pack(mask, pad, outside), rows), mask.shape, pad)
 
 
 def dilate_disk(mask: np.ndarray, diameter_px: int) -> np.ndarray:
     """Return the union of the disks placed at every pixel of ``mask`` (Minkowski sum)."""
     rows = disk_rows(diameter_px)
     pad = _reach(rows)
-    words = _pack(mask, pad, False)
+    return _unpack(_dilate_words(_pack(mask, pad, False), rows), mask.shape, pad)
+
+
+def open_disk(mask: np.ndarray, diameter_px: int, *, outside: bool = False) -> np.ndarray:
+    """Return the union of every disk of the diameter that fits inside ``mask``."""
+    rows = disk_rows(diameter_px)
+    pad = 2 * _reach(rows)  # the dilation reads erosions up to one reach into the padding
+    words = _erode_words(_pack(mask, pad, outside), rows)
+    return _unpack(_dilate_words(words, rows), mask.shape, pad)
+
+
+def _erode_words(words: np.ndarray, rows) -> np.ndarray:
+    runs = _runs(words, {b - a + 1 for _, a, b in rows}, np.bitwise_and, 1)
+    out = np.full_like(words, np.uint64(0xFFFFFFFFFFFFFFFF))
+    for dy, a, b in rows:
+        _rows_into(out, _shift_x(runs[b - a + 1], a), dy, np.bitwise_and)
+    return out
+
+
+def _dilate_words(words: np.ndarray, rows) -> np.ndarray:
     runs = _runs(words, {b - a + 1 for _, a, b in rows}, np.bitwise_or, -1)
     out = np.zeros_like(words)
     for dy, a, b in rows:
         _rows_into(out, _shift_x(runs[b - a + 1], -a), -dy, np.bitwise_or)
-    return _unpack(out, mask.shape, pad)
+    return out
 
 
 def _reach(rows) -> int:
@@ -122,53 +136,51 @@ def _runs(words: np.ndarray, lengths: set[int], op, sign: int) -> dict[int, np.n
     return out
 
 
-def open_disk(mask: np.ndarray, diameter_px: int, *, outside: bool = False) -> np.ndarray:
-    """Return the union of every disk of the diameter that fits inside ``mask``."""
-    return dilate_disk(erode_disk(mask, diameter_px, outside=outside), diameter_px)
-
-
 def limit_px(limit_mm: float, pixel_mm: float) -> int:
     """Return a limit as a whole-pixel diameter, rounded down: the grid cannot tell finer widths apart."""
     return max(1, int(math.floor(limit_mm / pixel_mm + 1e-6)))
 
 
 def nearest_void(mask: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Return (distance to the nearest void pixel centre, flat index of that pixel) for every pixel.
+    """Return (distance to the nearest void pixel centre, OpenCV's number of that void pixel).
 
-    Void beyond the array edge does not count; pad the mask with void first when it matters.
+    Void beyond the array edge does not count: pad the mask with void first. ``void_index`` turns
+    the numbers of the pixels you need into flat indices.
     """
-    if mask.all():
-        return np.full(mask.shape, np.inf, np.float32), np.zeros(mask.shape, np.int64)
     dist, labels = cv2.distanceTransformWithLabels(
         mask.view(np.uint8), cv2.DIST_L2, 5, labelType=cv2.DIST_LABEL_PIXEL)
-    zeros = np.flatnonzero(~mask.ravel())  # OpenCV numbers the void pixels in row-major order
-    return dist, zeros[labels.ravel() - 1].reshape(mask.shape)
+    return dist, labels
+
+
+def void_index(mask: np.ndarray, numbers: np.ndarray) -> np.ndarray:
+    """Return the flat indices of void pixels from OpenCV's numbers (it counts them in row-major order)."""
+    return np.flatnonzero(~mask.ravel())[numbers - 1]
 
 
 def ray_widths(mask: np.ndarray, rows: np.ndarray, cols: np.ndarray, near: np.ndarray, cap_px: int) -> np.ndarray:
-    """Return the width across ``mask`` through each pixel, along the line from its nearest void pixel.
+    """Return the width across ``mask`` through pixels (rows, cols), along the line from their nearest void.
 
-    The width counts the pixels from the near void to the far void: a straight wall n pixels wide
-    reads n at every pixel, whatever its parity; values above ``cap_px`` come back as cap_px + 1.
+    ``near`` holds the flat index of each pixel's nearest void pixel. The width counts the pixels from
+    the near void to the far one, so a straight wall n pixels wide reads n at every pixel whatever
+    its parity; widths above ``cap_px`` come back as cap_px + 1.
     """
     ny, nx = mask.shape
-    vy, vx = np.divmod(near[rows, cols], nx)
+    vy, vx = np.divmod(near, nx)
     dy, dx = (rows - vy).astype(np.float64), (cols - vx).astype(np.float64)
     d_near = np.hypot(dy, dx)
     with np.errstate(invalid="ignore", divide="ignore"):
         uy, ux = dy / d_near, dx / d_near
     far = np.full(rows.shape, float(cap_px + 2))
-    open_ = np.ones(rows.shape, bool)
+    going = np.ones(rows.shape, bool)
     for t in range(1, cap_px + 2):
         ry = np.rint(rows + t * uy).astype(np.int64)
         rx = np.rint(cols + t * ux).astype(np.int64)
         inside = (ry >= 0) & (ry < ny) & (rx >= 0) & (rx < nx)
         solid = np.zeros(rows.shape, bool)
         solid[inside] = mask[ry[inside], rx[inside]]
-        hit = open_ & ~solid
-        far[hit] = t
-        open_ &= solid
-        if not open_.any():
+        far[going & ~solid] = t
+        going &= solid
+        if not going.any():
             break
     return np.minimum(d_near + far - 1.0, cap_px + 1.0)
 
