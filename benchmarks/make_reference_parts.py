@@ -42,7 +42,8 @@ def checked(manifold: Manifold) -> Manifold:
 def hyperbolic_sag_mm(r_mm: np.ndarray) -> np.ndarray:
     """Return the sag of a plano-convex lens whose hyperbolic face looks at the focus.
 
-    (n^2 - 1) z^2 + 2 f (n - 1) z = r^2 (Goldsmith, Quasioptical Systems, 1998, eq. 9.4, from memory).
+    (n^2 - 1) z^2 + 2 (n - 1) f z = r^2 (Silver, Microwave Antenna Theory and Design, 1949, ch. 11;
+    Goldsmith, Quasioptical Systems, 1998, ch. 5; from memory).
     """
     a, b = N_LENS**2 - 1, 2 * FOCAL_MM * (N_LENS - 1)
     return (-b + np.sqrt(b * b + 4 * a * r_mm**2)) / (2 * a)

@@ -72,6 +72,9 @@ def build_parser() -> argparse.ArgumentParser:
     from services.cli_generate import add_generate_parser
 
     add_generate_parser(sub)
+    from services.batch import add_batch_parser
+
+    add_batch_parser(sub)
     return parser
 
 
@@ -145,6 +148,10 @@ def main(argv: list[str] | None = None) -> int:
             from services.cli_generate import cmd_generate
 
             return cmd_generate(args)
+        if args.command == "batch":
+            from services.batch import cmd_batch
+
+            return cmd_batch(args)
         return handlers[args.command](args)
     except UnusableInput as exc:
         print(f"phasewright: {exc.message}", file=sys.stderr)

@@ -113,7 +113,7 @@ class LayerStack:
     thickness_mm: np.ndarray
     _packed: tuple[bytes, ...] = field(repr=False)  # distinct rasters: packbits of their solid box, deflated
     _boxes: np.ndarray = field(repr=False)          # (distinct, 4) first row, first byte, rows, bytes per row
-    _index: np.ndarray = field(repr=False)                # (count,) layer -> distinct raster
+    _index: np.ndarray = field(repr=False)          # (count,) layer -> distinct raster
 
     def layer(self, k: int) -> np.ndarray:
         """Return layer k as a fresh bool (ny, nx) raster."""
@@ -159,6 +159,7 @@ class LayerStack:
         return sum(len(p) for p in self._packed) + self._boxes.nbytes + self._index.nbytes
 
     def summary(self) -> dict:
+        """Return the report's ``layers`` section."""
         return {
             "count": int(self.count),
             "layer_height_mm": float(self.layer_height_mm),
@@ -246,16 +247,15 @@ class _Grid:
         """Return the grid covering the triangles' xy bounds plus a void margin."""
         lo = np.array([tris[:, :, 0].min(), tris[:, :, 1].min()])  # per coordinate: 30x faster than axis=0
         hi = np.array([tris[:, :, 0].max(), tris[:, :, 1].max()])
-        i0 = np.floor(lo / px).astype(np.int64) - MARGIN_PX
-        i1 = np.ceil(hi / px).astype(np.int64) + MARGIN_PX
-        nx, ny = (int(n) for n in i1 - i0)
-        if nx * ny > MAX_PIXELS_PER_LAYER:
+        i0 = np.floor(lo / px) - MARGIN_PX
+        size = np.ceil(hi / px) + MARGIN_PX - i0
+        if size[0] * size[1] > MAX_PIXELS_PER_LAYER:  # checked in floats: no integer overflow on absurd sizes
             raise UnusableInput(
                 "grid_too_large",
-                f"{name} needs {nx:,} x {ny:,} pixels per layer at {px} mm, more than we can hold; "
-                "use a coarser pixel or a smaller part.",
+                f"{name} needs {size[0]:,.0f} x {size[1]:,.0f} pixels per layer at {px} mm, more than we can "
+                "hold; use a coarser pixel or a smaller part.",
             )
-        return cls(float(i0[0] * px), float(i0[1] * px), float(px), nx, ny)
+        return cls(float(i0[0] * px), float(i0[1] * px), float(px), int(size[0]), int(size[1]))
 
     @property
     def x_centres(self) -> np.ndarray:

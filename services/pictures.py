@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import io
+from dataclasses import dataclass
 
 import numpy as np
 from PIL import Image, ImageDraw, ImageFont
@@ -58,8 +59,11 @@ def _add_scale_bar(canvas: Image.Image, x0: int, y0: int, px_per_mm: float, widt
 
 
 def map_png(values: np.ndarray, *, pixel_mm: float, unit: str, title: str, mask: np.ndarray | None = None,
-            max_px: int = 520) -> bytes:
-    """Return a PNG of a 2-D map (row 0 = lowest y) with a colour bar and a mm scale bar."""
+            max_px: int = 520, markers: tuple[Marker, ...] = (), origin_mm: tuple[float, float] = (0.0, 0.0)) -> bytes:
+    """Return a PNG of a 2-D map (row 0 = lowest y) with a colour bar, a mm scale bar and numbered markers.
+
+    Pixel (r, c) has its centre at origin + ((c + 0.5), (r + 0.5)) x pixel_mm, as in the layer stack.
+    """
     vmax = float(np.nanmax(values)) if np.any(np.isfinite(values)) else 1.0
     vmin = float(np.nanmin(values)) if np.any(np.isfinite(values)) else 0.0
     span = vmax - vmin or 1.0
@@ -77,6 +81,9 @@ def map_png(values: np.ndarray, *, pixel_mm: float, unit: str, title: str, mask:
     draw.text((pad * 2 + img.width + bar_w + 6, pad + 18), f"{vmax:.3g} {unit}", fill=(20, 20, 20), font=_font())
     draw.text((pad * 2 + img.width + bar_w + 6, pad + 14 + img.height), f"{vmin:.3g} {unit}", fill=(20, 20, 20), font=_font())
     _add_scale_bar(canvas, pad, pad + 30 + img.height, scale / pixel_mm, img.width)
+    px_per_mm = scale / pixel_mm
+    _draw_markers(canvas, [(pad + (m.xyz_mm[0] - origin_mm[0]) * px_per_mm,
+                            pad + 22 + img.height - (m.xyz_mm[1] - origin_mm[1]) * px_per_mm, m) for m in markers])
     return _png(canvas)
 
 
@@ -93,6 +100,169 @@ def layer_crop_png(layer: np.ndarray, highlight: np.ndarray, *, pixel_mm: float,
     canvas.paste(img, (pad, pad + 18))
     _add_scale_bar(canvas, pad, pad + 28 + img.height, scale / pixel_mm, img.width)
     return _png(canvas)
+
+
+# Marker colours by severity: our red, amber and slate (the same as the site's severity badges).
+SEVERITY_RGB = {"blocker": (176, 38, 34), "caution": (168, 104, 0), "note": (86, 96, 122)}
+PART_RGB = np.array([176, 190, 208], float)
+PLATE_RGB, GRID_RGB = (236, 238, 242), (204, 208, 216)
+
+
+@dataclass(frozen=True, slots=True)
+class Marker:
+    """A numbered spot on a picture: a finding's location and severity."""
+
+    xyz_mm: tuple[float, float, float]
+    label: str
+    severity: str = "caution"
+
+
+def _draw_marker(draw: ImageDraw.ImageDraw, x: float, y: float, label: str, severity: str, radius: int) -> None:
+    """Draw a filled disc (or a pill, for a long label) with the label in white."""
+    fill = SEVERITY_RGB.get(severity, SEVERITY_RGB["note"])
+    font = _font(int(radius * 1.25))
+    half = max(radius, (draw.textlength(label, font=font) + radius) / 2)
+    draw.rounded_rectangle([x - half, y - radius, x + half, y + radius], radius=radius, fill=fill,
+                           outline=(255, 255, 255), width=max(1, radius // 5))
+    draw.text((x, y), label, fill=(255, 255, 255), font=font, anchor="mm")
+
+
+def _draw_markers(canvas: Image.Image, points: list[tuple[float, float, Marker]], radius: int = 10) -> None:
+    """Draw numbered markers, the most severe last so it stays on top."""
+    draw = ImageDraw.Draw(canvas)
+    order = {"note": 0, "caution": 1, "blocker": 2}
+    for x, y, m in sorted(points, key=lambda p: order.get(p[2].severity, 0)):
+        _draw_marker(draw, x, y, m.label, m.severity, radius)
+
+
+@dataclass(frozen=True, slots=True)
+class _Camera:
+    """A pinhole camera looking at ``target`` from azimuth/elevation, at ``distance``."""
+
+    position: np.ndarray
+    right: np.ndarray
+    up: np.ndarray
+    forward: np.ndarray
+
+    @classmethod
+    def looking_at(cls, target: np.ndarray, distance: float, azimuth_deg: float, elevation_deg: float) -> _Camera:
+        az, el = np.radians(azimuth_deg), np.radians(elevation_deg)
+        back = np.array([np.cos(el) * np.sin(az), -np.cos(el) * np.cos(az), np.sin(el)])
+        forward = -back
+        right = np.cross(forward, (0.0, 0.0, 1.0))
+        right /= np.linalg.norm(right)
+        return cls(target + distance * back, right, np.cross(right, forward), forward)
+
+    def project(self, points: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Return (n, 2) image-plane coordinates (y up) and (n,) depths of (n, 3) points."""
+        rel = points - self.position
+        depth = rel @ self.forward
+        xy = np.stack([rel @ self.right, rel @ self.up], axis=-1) / depth[:, None]
+        return xy, depth
+
+
+def cluster_vertices(vertices: np.ndarray, faces: np.ndarray, max_faces: int) -> tuple[np.ndarray, np.ndarray]:
+    """Return a coarser mesh by vertex clustering on a grid until at most ``max_faces`` remain.
+
+    Rossignac and Borrel's uniform clustering (1993): every vertex moves to the mean of its cell,
+    and faces that collapse are dropped. Good enough for a picture, never for a measurement.
+    """
+    lo, span = vertices.min(axis=0), float(np.ptp(vertices, axis=0).max()) or 1.0
+    cells = 512
+    while len(faces) > max_faces and cells >= 16:
+        keys = np.floor((vertices - lo) / (span / cells)).astype(np.int64)
+        _, inverse = np.unique(keys, axis=0, return_inverse=True)
+        inverse = inverse.ravel()
+        counts = np.bincount(inverse)
+        merged = np.stack([np.bincount(inverse, vertices[:, i]) / counts for i in range(3)], axis=1)
+        new = inverse[faces]
+        keep = (new[:, 0] != new[:, 1]) & (new[:, 1] != new[:, 2]) & (new[:, 0] != new[:, 2])
+        vertices, faces = merged, np.unique(new[keep], axis=0)
+        lo, cells = vertices.min(axis=0), cells // 2
+    return vertices, faces
+
+
+def _shaded_faces(tris: np.ndarray, camera: _Camera) -> tuple[np.ndarray, np.ndarray]:
+    """Return the indices of the faces seen from the camera, far to near, and their shade (0..1)."""
+    normals = np.cross(tris[:, 1] - tris[:, 0], tris[:, 2] - tris[:, 0])
+    length = np.linalg.norm(normals, axis=1)
+    centroids = tris.mean(axis=1)
+    facing = np.einsum("ij,ij->i", normals, camera.position - centroids) > 0
+    visible = np.flatnonzero(facing & (length > 0))
+    unit = normals[visible] / length[visible, None]
+    light = -camera.forward + 0.6 * camera.up - 0.4 * camera.right  # from above the viewer's left shoulder
+    light /= np.linalg.norm(light)
+    shade = 0.38 + 0.62 * np.clip(unit @ light, 0, 1)
+    depth = (centroids[visible] - camera.position) @ camera.forward
+    order = np.argsort(-depth, kind="stable")
+    return visible[order], shade[order]
+
+
+def _plate_lines(lo: np.ndarray, hi: np.ndarray) -> tuple[list[np.ndarray], float]:
+    """Return the build plate's outline and grid lines under the part (3-D segments) and the grid step."""
+    margin = 0.15 * float(max(hi[0] - lo[0], hi[1] - lo[1])) + 1.0
+    x0, x1, y0, y1, z = lo[0] - margin, hi[0] + margin, lo[1] - margin, hi[1] + margin, lo[2]
+    step = nice_length(max(x1 - x0, y1 - y0) / 6)
+    lines = [np.array([[x, y0, z], [x, y1, z]]) for x in np.arange(np.ceil(x0 / step) * step, x1, step)]
+    lines += [np.array([[x0, y, z], [x1, y, z]]) for y in np.arange(np.ceil(y0 / step) * step, y1, step)]
+    outline = np.array([[x0, y0, z], [x1, y0, z], [x1, y1, z], [x0, y1, z]])
+    return [outline, *lines], step
+
+
+def perspective_png(vertices_mm: np.ndarray, faces: np.ndarray, *, title: str, markers: tuple[Marker, ...] = (),
+                    max_px: int = 520, max_faces: int = 150_000, azimuth_deg: float = -35.0,
+                    elevation_deg: float = 32.0) -> bytes:
+    """Return a shaded perspective view of a mesh on its build plate, with numbered markers.
+
+    Painter's algorithm over the faces that face the camera (flat shading, one light); drawn at
+    twice the size and reduced, which smooths the edges.
+    """
+    vertices, faces = cluster_vertices(np.asarray(vertices_mm, float), np.asarray(faces), max_faces)
+    lo, hi = vertices.min(axis=0), vertices.max(axis=0)
+    camera = _Camera.looking_at((lo + hi) / 2, 3.0 * float(np.linalg.norm(hi - lo)) + 1.0, azimuth_deg, elevation_deg)
+    plate, step = _plate_lines(lo, hi)
+    fit = _ScreenFit(np.concatenate([camera.project(vertices)[0], *(camera.project(p)[0] for p in plate)]), 2 * max_px)
+    canvas = Image.new("RGB", (fit.width, fit.height), "white")
+    draw = ImageDraw.Draw(canvas)
+    draw.polygon([tuple(p) for p in fit(camera.project(plate[0])[0])], fill=PLATE_RGB)
+    for seg in plate[1:]:
+        draw.line([tuple(p) for p in fit(camera.project(seg)[0])], fill=GRID_RGB, width=2)
+    order, shade = _shaded_faces(vertices[faces], camera)
+    screen = fit(camera.project(vertices)[0])
+    colours = (PART_RGB[None, :] * shade[:, None]).astype(int).tolist()
+    for tri, colour in zip(screen[faces[order]].tolist(), colours):
+        draw.polygon([tuple(p) for p in tri], fill=tuple(colour))
+    image = canvas.resize((fit.width // 2, fit.height // 2), Image.LANCZOS)
+    points = [(*(fit(camera.project(np.array([m.xyz_mm], float))[0])[0] / 2), m) for m in markers]
+    _draw_markers(image, points)
+    return _png(_titled(image, title, f"grid {step:g} mm"))
+
+
+class _ScreenFit:
+    """Map image-plane points (y up) into a canvas of about ``size`` px on the longer side, y down."""
+
+    def __init__(self, points: np.ndarray, size: int, pad_frac: float = 0.06) -> None:
+        self.lo, span = points.min(axis=0), np.ptp(points, axis=0)
+        self.scale = size / max(float(span.max()), 1e-12)
+        self.pad = round(pad_frac * size)
+        self.width = int(span[0] * self.scale) + 2 * self.pad
+        self.height = int(span[1] * self.scale) + 2 * self.pad
+        self.width, self.height = self.width + self.width % 2, self.height + self.height % 2
+
+    def __call__(self, points: np.ndarray) -> np.ndarray:
+        xy = (points - self.lo) * self.scale + self.pad
+        return np.stack([xy[:, 0], self.height - xy[:, 1]], axis=1)
+
+
+def _titled(image: Image.Image, title: str, note: str = "") -> Image.Image:
+    """Return the image on a white canvas with a title line above it and a note below."""
+    canvas = Image.new("RGB", (max(image.width, 360) + 24, image.height + 58), "white")
+    draw = ImageDraw.Draw(canvas)
+    draw.text((12, 6), title, fill=(20, 20, 20), font=_font(14))
+    canvas.paste(image, (12, 30))
+    if note:
+        draw.text((12, 36 + image.height), note, fill=(70, 70, 70), font=_font(12))
+    return canvas
 
 
 def _png(img: Image.Image) -> bytes:

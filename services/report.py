@@ -8,6 +8,7 @@ from __future__ import annotations
 import time
 from collections.abc import Callable
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING
 
 from services import layers, pictures
 from services.findings import Finding, sorted_by_severity, verdict_of
@@ -17,6 +18,9 @@ from services.rules import run_rules
 from services.rules.build_fit import check_build_fit
 from services.safety import cautions_for
 from services.settings import CheckSettings
+
+if TYPE_CHECKING:
+    from services.estimate.calibration import Calibration
 
 SCHEMA = "phasewright.report/1"
 
@@ -92,8 +96,12 @@ class _Stages:
 
 
 def build_report(*, part: Part, printer: PrinterProfile, material: Material,
-                 settings: CheckSettings | None = None, progress: Progress | None = None) -> Report:
-    """Check a part on one printer and material and return the report."""
+                 settings: CheckSettings | None = None, progress: Progress | None = None,
+                 calibration: Calibration | None = None) -> Report:
+    """Check a part on one printer and material and return the report.
+
+    ``calibration`` is the printer's print-time correction from logged prints (None: uncalibrated).
+    """
     settings = settings or CheckSettings()
     check_pairing(printer, material)  # before the slicing, not after it
     stages = _Stages(progress)
@@ -102,11 +110,11 @@ def build_report(*, part: Part, printer: PrinterProfile, material: Material,
         oriented, pixel_mm=printer.pixel_mm, layer_height_mm=printer.layer_height_mm, progress=p))
     fit_findings, build = check_build_fit(oriented, printer)
     rules = stages.run("rules", lambda p: run_rules(stack=stack, part=oriented, printer=printer, progress=p))
-    estimate = stages.run("estimate", lambda p: _estimate(stack, oriented, printer, material, settings, rules))
+    estimate = stages.run("estimate", lambda p: _estimate(stack, oriented, printer, material, settings, rules, calibration))
     optics = stages.run("optics", lambda p: _optics(oriented, stack, printer, material, settings, p))
     figures = {**rules.figures, **(optics.figures if optics else {})}
-    figures.update(stages.run("pictures", lambda p: _overview_pictures(stack)))
     findings = sorted_by_severity([*part.findings, *fit_findings, *rules.findings, *(optics.findings if optics else ())])
+    figures.update(stages.run("pictures", lambda p: _overview_pictures(stack, oriented, findings)))
     return Report(
         design=part.summary(), printer=printer.to_dict(), material=material.to_dict(),
         settings=settings.to_dict(), layers=stack.summary(), verdict=verdict_of(findings),
@@ -117,12 +125,12 @@ def build_report(*, part: Part, printer: PrinterProfile, material: Material,
     )
 
 
-def _estimate(stack, part, printer, material, settings, rules):
+def _estimate(stack, part, printer, material, settings, rules, calibration=None):
     from services.estimate import estimate_print
 
     support = rules.summary.get("overhang", {}).get("support_volume_mm3")
     return estimate_print(stack=stack, part=part, printer=printer, material=material,
-                          quantities=settings.quantities, support_volume_mm3=support)
+                          quantities=settings.quantities, support_volume_mm3=support, calibration=calibration)
 
 
 def _optics(part, stack, printer, material, settings, progress=None):
@@ -132,9 +140,30 @@ def _optics(part, stack, printer, material, settings, progress=None):
                          settings=settings.optics, progress=progress)
 
 
-def _overview_pictures(stack) -> dict[str, bytes]:
-    """Return the top view of the thickness map (what a designer looks at first)."""
+def _overview_pictures(stack, part: Part, findings: list[Finding]) -> dict[str, bytes]:
+    """Return the views a designer looks at first: from above and in perspective, findings numbered.
+
+    A marker's number is the finding's place in the report's (sorted) list, counting from 1.
+    """
+    markers = finding_markers(findings)
     thick = stack.thickness_mm
-    png = pictures.map_png(thick, pixel_mm=stack.pixel_mm, unit="mm", mask=thick > 0,
-                           title="As-printed thickness, seen from above (+z)")
-    return {"thickness_map.png": png}
+    top = pictures.map_png(thick, pixel_mm=stack.pixel_mm, unit="mm", mask=thick > 0, markers=markers,
+                           origin_mm=stack.origin_mm[:2], title="As-printed thickness, seen from above (+z)")
+    view = pictures.perspective_png(part.vertices_mm, part.faces, markers=markers,
+                                    title="The part as built, in perspective (build plate below)")
+    return {"thickness_map.png": top, "perspective.png": view}
+
+
+def finding_markers(findings, limit: int = 30) -> tuple[pictures.Marker, ...]:
+    """Return numbered markers for the findings that have a location; findings at one spot share one.
+
+    Findings within 0.5 mm of each other get one marker labelled "1, 2" in the colour of the worst.
+    """
+    spots: dict[tuple, list] = {}
+    for i, f in enumerate(findings, start=1):
+        if f.location_mm is not None:
+            key = tuple(round(v * 2) for v in f.location_mm)
+            spots.setdefault(key, []).append((i, f))
+    markers = [pictures.Marker(tuple(group[0][1].location_mm), ", ".join(str(i) for i, _ in group),
+                               group[0][1].severity) for group in spots.values()]
+    return tuple(markers[:limit])

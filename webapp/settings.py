@@ -216,6 +216,9 @@ PHASEWRIGHT_MAX_ATTEMPTS = 3
 # Address space one check may add to its worker child (RLIMIT_AS above what the child holds once the
 # pipeline is imported); past it an allocation fails and the check ends with a sentence. 0: no bound.
 PHASEWRIGHT_CHECK_MEMORY_MIB = envint("PHASEWRIGHT_CHECK_MEMORY_MIB", "4096")
+if CELERY_TASK_SOFT_TIME_LIMIT >= CELERY_TASK_TIME_LIMIT:
+    # Celery arms the hard limit only once the soft one has fired: a soft limit at or above it disables both.
+    raise ImproperlyConfigured("PHASEWRIGHT_CHECK_SOFT_LIMIT_S must be below PHASEWRIGHT_CHECK_HARD_LIMIT_S.")
 if REDIS_URL and VISIBILITY_TIMEOUT_S <= CELERY_TASK_TIME_LIMIT:
     raise ImproperlyConfigured("PHASEWRIGHT_VISIBILITY_TIMEOUT_S must exceed PHASEWRIGHT_CHECK_HARD_LIMIT_S, or Redis "
                                "hands a running check to a second worker.")

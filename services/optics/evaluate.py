@@ -6,7 +6,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from services.optics.focus import Spot, best_focus_mm, encircled_power, ideal_lens_phase, spot_at
+from services.optics.focus import Spot, best_focus_mm, encircled_power, ideal_lens_phase, spot_at, wavefront_focus_mm
 from services.optics.illumination import Illumination
 from services.optics.propagate import AngularSpectrum
 from services.optics.transmission import CellSParams
@@ -65,9 +65,14 @@ def losses(sp: CellSParams, illum: Illumination) -> Losses:
 
 @dataclass(frozen=True, slots=True, eq=False)
 class FocusMetrics:
-    """One frequency's focus; distances from the part's far extreme along the axis."""
+    """One frequency's focus; distances from the part's far extreme along the axis.
+
+    best_focus_mm : the on-axis intensity peak; wavefront_focus_mm : the centre of the best-fit
+    converging sphere of the exit wavefront (the geometric focus)
+    """
 
     best_focus_mm: float
+    wavefront_focus_mm: float
     fwhm_mm: tuple[float, float]
     diffraction_limited_fwhm_mm: tuple[float, float]
     strehl: float
@@ -78,29 +83,33 @@ class FocusMetrics:
     ideal: Spot
 
 
-def focus_metrics(s21: np.ndarray, illum: Illumination, *, wavelength_mm: float, intended_mm: float,
+def focus_metrics(field: np.ndarray, illum: Illumination, *, wavelength_mm: float, intended_mm: float,
                   exit_offset_mm: float, axis_index: tuple[int, int]) -> FocusMetrics:
-    """Propagate illumination x cell transmission from the exit plane and measure the focus.
+    """Propagate the field on the exit plane (on the analysis cells) and measure the focus.
 
+    field : (ny, nx) complex, the beam as it leaves the part (``CellSParams.exit_field``), or a thin
+    element's illumination x aperture x S21.
     exit_offset_mm : how far the model's exit plane lies beyond the part's far extreme (the
     reference plane), so a distance d from the exit plane is d + offset from the reference.
-    The diffraction-limited reference keeps the same amplitude |field| with a perfect converging
-    phase to the measured best focus; Strehl is the ratio of the two peak intensities.
+    The diffraction-limited reference keeps the same amplitude |field| with a perfect spherical
+    wavefront converging on the wavefront focus; Strehl is the ratio of the two on-axis intensity
+    peaks, so an aberration-free field reads 1 at any Fresnel number (both peaks shift alike).
     """
-    field = illum.amplitude * illum.aperture * s21
     asm = AngularSpectrum(field, cell_mm=illum.cell_mm, wavelength_mm=wavelength_mm)
     lo = max(SCAN_FROM * intended_mm - exit_offset_mm, wavelength_mm)
     hi = max(SCAN_TO * intended_mm - exit_offset_mm, 2 * lo)
     d_best, scan_d, scan_i = best_focus_mm(asm, axis_index, lo, hi)
     spot = spot_at(asm, d_best)
+    d_wave, _ = wavefront_focus_mm(field, illum.cell_mm, axis_index, wavelength_mm, lo, hi)
     radius = np.hypot(*np.meshgrid((np.arange(field.shape[1]) - axis_index[1]) * illum.cell_mm,
                                    (np.arange(field.shape[0]) - axis_index[0]) * illum.cell_mm))
-    ideal_field = np.abs(field) * ideal_lens_phase(radius, d_best, wavelength_mm)
-    ideal = spot_at(AngularSpectrum(ideal_field, cell_mm=illum.cell_mm, wavelength_mm=wavelength_mm), d_best)
+    ideal_asm = AngularSpectrum(np.abs(field) * ideal_lens_phase(radius, d_wave, wavelength_mm),
+                                cell_mm=illum.cell_mm, wavelength_mm=wavelength_mm)
+    ideal = spot_at(ideal_asm, best_focus_mm(ideal_asm, axis_index, lo, hi)[0])
     iris = EFFICIENCY_RADIUS_FWHM * float(np.mean(ideal.fwhm_mm))
     inside = encircled_power(np.abs(spot.field) ** 2, illum.cell_mm, spot.peak_index, iris)
     return FocusMetrics(
-        best_focus_mm=d_best + exit_offset_mm, fwhm_mm=spot.fwhm_mm,
+        best_focus_mm=d_best + exit_offset_mm, wavefront_focus_mm=d_wave + exit_offset_mm, fwhm_mm=spot.fwhm_mm,
         diffraction_limited_fwhm_mm=ideal.fwhm_mm, strehl=spot.peak_intensity / ideal.peak_intensity,
         focusing_efficiency=inside / illum.aperture_power, scan_mm=scan_d + exit_offset_mm,
         scan_intensity=scan_i, spot=spot, ideal=ideal,
@@ -112,6 +121,7 @@ def focus_dict(intended_mm: float, metrics: list[FocusMetrics]) -> dict:
     return {
         "intended_mm": intended_mm,
         "best_focus_mm": _r([m.best_focus_mm for m in metrics], 3),
+        "wavefront_focus_mm": _r([m.wavefront_focus_mm for m in metrics], 3),
         "fwhm_mm": [[round(v, 4) for v in m.fwhm_mm] for m in metrics],
         "diffraction_limited_fwhm_mm": [[round(v, 4) for v in m.diffraction_limited_fwhm_mm] for m in metrics],
         "fwhm_ratio": _r([np.mean(m.fwhm_mm) / np.mean(m.diffraction_limited_fwhm_mm) for m in metrics]),

@@ -17,6 +17,12 @@ DESIGN_PIXELS_PER_CELL = 8    # fill fractions to 1/64 of a cell are plenty for 
 DESIGN_MAX_PIXELS_ACROSS = 4096   # 16.8 Mpixel per layer: the fine raster stays near 2 MB packed per distinct layer
 DESIGN_LAYER_PHASE_STEPS = 32     # a design layer delays the phase by at most 2 pi / 32 (uniform error 0.06 rad rms)
 DESIGN_MAX_LAYERS = 800           # bounds the transfer-matrix loop (one pass per distinct run of layers)
+# The multi-slice field runs on sub-cells of about lambda/8: a cell straddling a zone wall mixes two
+# paths a full wave apart, and the smaller the sub-cell the thinner the ring where that mix cancels
+# (computed: the 60 mm zoned benchmark lens reads Strehl 0.86 at lambda/4 cells, see benchmarks/README.md).
+FIELD_CELLS_PER_WAVELENGTH = 8
+MAX_FIELD_CELLS_ACROSS = 1024     # bounds the multi-slice FFT window like MAX_CELLS_ACROSS bounds the cells
+SLICES_PER_WAVELENGTH = 4         # multi-slice steps per wavelength in the material (computed convergence)
 
 
 @dataclass(frozen=True, slots=True)
@@ -62,6 +68,29 @@ def analysis_grid(part: Part, printer_pixel_mm: float, wavelength_min_mm: float,
     cell = m * printer_pixel_mm
     half = ((hi[0] - lo[0]) / 2 + MARGIN_CELLS * cell, (hi[1] - lo[1]) / 2 + MARGIN_CELLS * cell)
     return CellGrid.around(axis_mm=part_axis_mm(part), half_extent_mm=half, cell_mm=cell)
+
+
+def field_subdivision(grid: CellGrid, printer_pixel_mm: float, wavelength_min_mm: float,
+                      period_mm: float | None = None) -> int:
+    """Return how many sub-cells per cell side the multi-slice field uses (1: the cells themselves).
+
+    A sub-cell is a whole number of printer pixels (so its fill fractions stay exact) and about
+    lambda / FIELD_CELLS_PER_WAVELENGTH or smaller, within MAX_FIELD_CELLS_ACROSS. A lattice keeps
+    one period per cell: resolving a subwavelength lattice would undo its effective medium.
+    """
+    if period_mm is not None:
+        return 1
+    pixels = max(1, round(grid.cell_mm / printer_pixel_mm))
+    cap = max(1, MAX_FIELD_CELLS_ACROSS // max(grid.shape))
+    options = [d for d in range(1, pixels + 1) if pixels % d == 0 and d <= cap]
+    want = grid.cell_mm * FIELD_CELLS_PER_WAVELENGTH / wavelength_min_mm
+    enough = [d for d in options if d >= want - 1e-9]
+    return min(enough) if enough else max(options)
+
+
+def slice_mm(wavelength_min_mm: float, n_max: float) -> float:
+    """Return the longest multi-slice step: SLICES_PER_WAVELENGTH steps per wavelength in the material."""
+    return wavelength_min_mm / (SLICES_PER_WAVELENGTH * max(n_max, 1.0))
 
 
 def design_grid(part: Part, *, printer_pixel_mm: float, printer_layer_mm: float, cell_mm: float,

@@ -31,6 +31,10 @@ class Illumination:
     def edge_taper_db(self) -> float:
         return float(gaussian.edge_taper_db(self.rim_radius_mm, self.beam_radius_mm))
 
+    def amplitude_on(self, grid: CellGrid) -> np.ndarray:
+        """Return exp(-r^2 / w^2) at the centres of another grid about the same axis (e.g. sub-cells)."""
+        return np.exp(-grid.radius_mm() ** 2 / self.beam_radius_mm**2)
+
     @property
     def weights(self) -> np.ndarray:
         """Return the illumination power per cell inside the clear aperture (zero outside)."""

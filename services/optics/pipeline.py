@@ -10,11 +10,12 @@ import numpy as np
 from services.findings import Finding
 from services.layers import LayerStack, build_layer_stack
 from services.optics import checks, figures, grids
-from services.optics.cells import cell_footprint
+from services.optics.cells import CellGrid, cell_footprint
 from services.optics.effective_medium import DEFAULT_MODEL
 from services.optics.evaluate import EFFICIENCY_RADIUS_FWHM, focus_dict, focus_metrics, losses
 from services.optics.illumination import Illumination, illumination_for
 from services.optics.materials import RFValues, default_freqs_ghz, rf_values, wavelength_mm
+from services.optics.multislice import ABSORBER_WAVELENGTHS, Beam
 from services.optics.touchstone import touchstone_s2p
 from services.optics.transmission import CellSParams, Variant, cell_sparams
 from services.part import Part
@@ -23,6 +24,14 @@ from services.settings import OpticsSettings
 
 DISTANCES_FROM = ("the part's far extreme along the optical axis (its highest point in +z as built, "
                   "e.g. a lens vertex); the optical axis is build +z through the centre of the part's xy bounds")
+FOCUS_DEFINITIONS = {
+    "best_focus_mm": "the on-axis intensity peak; at a low Fresnel number a^2 / (lambda f) it lies short of the "
+                     "geometric focus (Li & Wolf, Opt. Commun. 39, 211, 1981)",
+    "wavefront_focus_mm": "the centre of the converging sphere that best fits the wavefront leaving the part "
+                          "(amplitude-weighted phase coherence): the geometric focus a design focal length means",
+    "strehl": "peak intensity over that of the same exit amplitude with a perfect spherical wavefront converging on "
+              "the wavefront focus (1 for an aberration-free part at any Fresnel number)",
+}
 EFFICIENCY_DEFINITION = (f"power inside a circle of radius {EFFICIENCY_RADIUS_FWHM:g} x the diffraction-limited FWHM "
                          "around the focal-plane peak, over the illumination power incident on the clear aperture "
                          "(after Arbabi et al., Nat. Commun. 6, 7069, 2015; from memory)")
@@ -63,11 +72,13 @@ def optics_report(*, part: Part, printed: LayerStack, material: Material, printe
                               cell_mm=grid.cell_mm, wavelength_min_mm=float(lam.min()), n_max=grids.max_index(rf.eps_r))
     designed = build_layer_stack(part, pixel_mm=dgrid.pixel_mm, layer_height_mm=dgrid.layer_height_mm,
                                  progress=lambda f: tick(0.25 * f))
-    sp_d = cell_sparams(designed, grid, rf, progress=lambda f: tick(0.25 + 0.2 * f))["nominal"]
-    variants = _tolerance_variants(printer, printed)
-    sp_p = cell_sparams(printed, grid, rf, variants=variants, progress=lambda f: tick(0.45 + 0.25 * f))
     illum = illumination_for(edge_taper_db=settings.edge_taper_db, beam_waist_mm=settings.beam_waist_mm,
                              rim_radius_mm=grids.rim_radius_mm(part), grid=grid, aperture=cell_footprint(designed, grid))
+    sub = grids.field_subdivision(grid, printer.pixel_mm, float(lam.min()), period[0] if period else None)
+    beam = _beam(illum, designed, grid, sub, rf) if settings.focal_length_mm is not None else None
+    sp_d = cell_sparams(designed, grid, rf, beam=beam, progress=lambda f: tick(0.25 + 0.2 * f))["nominal"]
+    variants = _tolerance_variants(printer, printed)
+    sp_p = cell_sparams(printed, grid, rf, variants=variants, beam=beam, progress=lambda f: tick(0.45 + 0.25 * f))
     z_ref = float(part.bounds_mm[1][2])
     models = {name: _evaluate(sp, illum, rf, settings, z_ref, grid.axis_index) for name, sp in sp_p.items()}
     tick(0.9)
@@ -75,6 +86,7 @@ def optics_report(*, part: Part, printed: LayerStack, material: Material, printe
     err = checks.phase_error(sp_p["nominal"].s21, sp_d.s21, illum.weights)
     findings = _findings(err, rf, period, settings)
     section = _section(rf, freq_note, models, design_model, illum, grid, dgrid, err, printer, settings)
+    section["analysis"]["field_cell_mm"] = grid.cell_mm / sub if beam is not None else None
     section["analysis"]["lattice_period_mm"] = None if period is None else {"value": period[0], "how": period[1]}
     result = OpticsResult(section, findings, _figures(rf, models["nominal"], design_model, illum, grid),
                           touchstone_s2p(rf.freqs_ghz, *_weighted_s(models["nominal"]), name=part.name))
@@ -90,6 +102,14 @@ def _frequencies(settings: OpticsSettings, material: Material) -> tuple[tuple[fl
                    + " GHz around the centre of the material's RF table.")
 
 
+def _beam(illum: Illumination, designed: LayerStack, grid: CellGrid, sub: int, rf: RFValues) -> Beam:
+    """Return the illumination on the part's bottom face, on sub-cells, cut to the clear aperture."""
+    fine = grid.subdivided(sub)
+    lam = wavelength_mm(rf.freqs_ghz)
+    return Beam(illum.amplitude_on(fine) * cell_footprint(designed, fine), grid, sub,
+                grids.slice_mm(float(lam.min()), grids.max_index(rf.eps_r)), ABSORBER_WAVELENGTHS * float(lam.max()))
+
+
 def _tolerance_variants(printer: PrinterProfile, printed: LayerStack) -> tuple[Variant, ...]:
     """Return the nominal print and the print grown, shrunk (XY) and stretched, squashed (Z) by the tolerances."""
     height = printed.count * printed.layer_height_mm
@@ -103,7 +123,7 @@ def _evaluate(sp: CellSParams, illum: Illumination, rf: RFValues, settings: Opti
               axis_index: tuple[int, int]) -> _Model:
     focus = None
     if settings.focal_length_mm is not None:
-        focus = [focus_metrics(sp.s21[i], illum, wavelength_mm=float(wavelength_mm(f)),
+        focus = [focus_metrics(sp.exit_field[i], illum, wavelength_mm=float(wavelength_mm(f)),
                                intended_mm=settings.focal_length_mm, exit_offset_mm=sp.top_mm - z_ref,
                                axis_index=axis_index) for i, f in enumerate(rf.freqs_ghz)]
     return _Model(sp, losses(sp, illum), focus)
@@ -164,6 +184,7 @@ def _section(rf, freq_note, models, design, illum, grid, dgrid, err, printer, se
         "as_designed": {**design.losses.to_dict(spill_db), "focus": focus_of(design)},
         "distances_from": DISTANCES_FROM,
         "focusing_efficiency_definition": EFFICIENCY_DEFINITION,
+        "focus_definitions": FOCUS_DEFINITIONS,
         "phase_error": {"rms_rad": [round(float(v), 5) for v in err.rms_rad],
                         "strehl": [round(float(v), 5) for v in err.strehl],
                         "method": "illumination-weighted RMS of arg(t_printed / t_designed), piston removed; "
@@ -173,8 +194,10 @@ def _section(rf, freq_note, models, design, illum, grid, dgrid, err, printer, se
             "cell_mm": grid.cell_mm, "cells": list(grid.shape),
             "cells_per_wavelength": round(float(wavelength_mm(rf.freqs_ghz.max()) / grid.cell_mm), 3),
             "effective_medium": DEFAULT_MODEL, "as_designed_grid": dgrid.to_dict(),
-            "model": ("per-cell coherent transfer matrix along the axis (thin element, normal incidence), "
-                      "scalar angular-spectrum propagation of illumination x cell transmission"),
+            "model": ("losses: per-cell coherent transfer matrix along the axis (normal incidence); focus: "
+                      "the illumination marched up through the part slice by slice (scalar split-step "
+                      "beam propagation on sub-cells, loss from Im n, the faces' transmission from the "
+                      "transfer matrices), then scalar angular-spectrum propagation from the part's top"),
         },
     }
 
@@ -185,6 +208,7 @@ def _band(models: dict, printer: PrinterProfile) -> dict:
         out = {"transmission_loss_db": -10 * np.log10(model.losses.transmission)}
         if model.focus is not None:
             out["best_focus_mm"] = np.array([m.best_focus_mm for m in model.focus])
+            out["wavefront_focus_mm"] = np.array([m.wavefront_focus_mm for m in model.focus])
             out["strehl"] = np.array([m.strehl for m in model.focus])
             out["fwhm_mm"] = np.array([np.mean(m.fwhm_mm) for m in model.focus])
         return out

@@ -30,7 +30,11 @@ def rule_checks() -> list[tuple[str, Callable]]:
 
 def run_rules(*, stack, part, printer, progress: Callable[[float], None] | None = None) -> RuleOutput:
     """Run every enabled rule family on the layer stack and gather the outputs."""
+    from services.rules import registry
+
     checks = rule_checks()
+    # The layer-stack families share one pass: run it first, so progress follows the real work.
+    registry.prepare(stack=stack, part=part, printer=printer, progress=progress)
     findings: list[Finding] = []
     figures: dict = {}
     summary: dict = {}
@@ -41,5 +45,5 @@ def run_rules(*, stack, part, printer, progress: Callable[[float], None] | None 
         if out.summary:
             summary[name] = out.summary
         if progress:
-            progress((i + 1) / len(checks))
+            progress(0.9 + 0.1 * (i + 1) / len(checks))  # the shared pass reported 0..0.9
     return RuleOutput(tuple(findings), figures, summary)

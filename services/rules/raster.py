@@ -36,21 +36,25 @@ def disk_rows(diameter_px: int) -> tuple[tuple[int, int, int], ...]:
     return tuple(rows)
 
 
-def _shift_x(words: np.ndarray, m: int) -> np.ndarray:
+def _shift_x(words: np.ndarray, m: int, out: np.ndarray | None = None) -> np.ndarray:
     """Return packed rows shifted so that pixel x of the result is pixel x + m of the input (zeros in)."""
+    if out is None:
+        out = np.empty_like(words)
     if m == 0:
-        return words.copy()
-    out = np.zeros_like(words)
+        np.copyto(out, words)
+        return out
     q, b = divmod(abs(m), 64)
     n = words.shape[1]
     if m > 0:
-        out[:, :n - q] = words[:, q:] >> np.uint64(b) if b else words[:, q:]
+        np.right_shift(words[:, q:], np.uint64(b), out=out[:, :n - q])
         if b:
             out[:, :n - q - 1] |= words[:, q + 1:] << np.uint64(64 - b)
+        out[:, n - q:] = 0
     else:
-        out[:, q:] = words[:, :n - q] << np.uint64(b) if b else words[:, :n - q]
+        np.left_shift(words[:, :n - q], np.uint64(b), out=out[:, q:])
         if b:
             out[:, q + 1:] |= words[:, :n - q - 1] >> np.uint64(64 - b)
+        out[:, :q] = 0
     return out
 
 
@@ -106,16 +110,18 @@ def open_disk(mask: np.ndarray, diameter_px: int, *, outside: bool = False) -> n
 def _erode_words(words: np.ndarray, rows) -> np.ndarray:
     runs = _runs(words, {b - a + 1 for _, a, b in rows}, np.bitwise_and, 1)
     out = np.full_like(words, np.uint64(0xFFFFFFFFFFFFFFFF))
+    tmp = np.empty_like(words)
     for dy, a, b in rows:
-        _rows_into(out, _shift_x(runs[b - a + 1], a), dy, np.bitwise_and)
+        _rows_into(out, _shift_x(runs[b - a + 1], a, tmp), dy, np.bitwise_and)
     return out
 
 
 def _dilate_words(words: np.ndarray, rows) -> np.ndarray:
     runs = _runs(words, {b - a + 1 for _, a, b in rows}, np.bitwise_or, -1)
     out = np.zeros_like(words)
+    tmp = np.empty_like(words)
     for dy, a, b in rows:
-        _rows_into(out, _shift_x(runs[b - a + 1], -a), -dy, np.bitwise_or)
+        _rows_into(out, _shift_x(runs[b - a + 1], -a, tmp), -dy, np.bitwise_or)
     return out
 
 
@@ -127,10 +133,11 @@ def _runs(words: np.ndarray, lengths: set[int], op, sign: int) -> dict[int, np.n
     """Return {n: op of the pixels x .. x + n - 1 (sign 1) or x - n + 1 .. x (sign -1)}, grown one by one."""
     longest = max(lengths)
     run = words.copy()
+    tmp = np.empty_like(words)
     out = {}
     for n in range(1, longest + 1):
         if n > 1:
-            op(run, _shift_x(words, sign * (n - 1)), out=run)
+            op(run, _shift_x(words, sign * (n - 1), tmp), out=run)
         if n in lengths:
             out[n] = run if n == longest else run.copy()
     return out
@@ -171,23 +178,24 @@ def ray_widths(mask: np.ndarray, rows: np.ndarray, cols: np.ndarray, near: np.nd
     with np.errstate(invalid="ignore", divide="ignore"):
         uy, ux = dy / d_near, dx / d_near
     far = np.full(rows.shape, float(cap_px + 2))
-    going = np.ones(rows.shape, bool)
+    going = np.arange(rows.size)
     for t in range(1, cap_px + 2):
-        ry = np.rint(rows + t * uy).astype(np.int64)
-        rx = np.rint(cols + t * ux).astype(np.int64)
+        ry = np.rint(rows[going] + t * uy[going]).astype(np.int64)
+        rx = np.rint(cols[going] + t * ux[going]).astype(np.int64)
         inside = (ry >= 0) & (ry < ny) & (rx >= 0) & (rx < nx)
-        solid = np.zeros(rows.shape, bool)
+        solid = np.zeros(going.size, bool)
         solid[inside] = mask[ry[inside], rx[inside]]
-        far[going & ~solid] = t
-        going &= solid
-        if not going.any():
+        far[going[~solid]] = t
+        going = going[solid]  # keep marching only the rays still inside the material
+        if going.size == 0:
             break
     return np.minimum(d_near + far - 1.0, cap_px + 1.0)
 
 
 def label(mask: np.ndarray, connectivity: int = 8) -> tuple[int, np.ndarray]:
     """Return (number of labels including background 0, int32 labels)."""
-    count, labels = cv2.connectedComponents(mask.view(np.uint8), connectivity=connectivity, ltype=cv2.CV_32S)
+    algorithm = cv2.CCL_BOLELLI if connectivity == 8 else cv2.CCL_SAUF  # the fastest measured here
+    count, labels = cv2.connectedComponentsWithAlgorithm(mask.view(np.uint8), connectivity, cv2.CV_32S, algorithm)
     return int(count), labels
 
 
@@ -197,7 +205,7 @@ def per_label_max(values: np.ndarray, labels: np.ndarray, count: int, where: np.
     lab = labels.ravel()[idx]
     val = values.ravel()[idx]
     best = np.full(count, -np.inf)
-    np.maximum.at(best, lab, val)
+    np.maximum.at(best, lab.astype(np.intp), val.astype(np.float64))  # matching dtypes: numpy's fast path
     at = np.full(count, -1, np.int64)
     top = idx[val >= best[lab]]
     at[labels.ravel()[top][::-1]] = top[::-1]  # reversed so that the first such pixel wins
@@ -210,18 +218,45 @@ def ridge(dist: np.ndarray, mask: np.ndarray) -> np.ndarray:
     return mask & (dist >= grown)
 
 
-def overlap_pairs(a: np.ndarray, b: np.ndarray, where: np.ndarray | None = None) -> np.ndarray:
-    """Return the distinct (label in a, label in b) pairs of pixels where both are non-zero, as (k, 2)."""
-    both = (a > 0) & (b > 0)
+def overlap_pairs(a: np.ndarray, b: np.ndarray, where: np.ndarray | None = None, step: int = 1) -> np.ndarray:
+    """Return the distinct (label in a, label in b) pairs of pixels where both are non-zero, as (k, 2).
+
+    ``step`` > 1 samples every step-th row and column: overlaps narrower than that may be missed.
+    """
+    if step > 1:
+        a, b = a[::step, ::step], b[::step, ::step]
+        where = where[::step, ::step] if where is not None else None
+    # Only where a row run of equal (a, b) starts can a new pair appear: look at those pixels alone.
+    start = np.ones(a.shape, bool)
+    start[:, 1:] = (a[:, 1:] != a[:, :-1]) | (b[:, 1:] != b[:, :-1])
     if where is not None:
-        both &= where
-    idx = np.flatnonzero(both.ravel())
-    if idx.size == 0:
+        start[:, 1:] |= where[:, 1:] != where[:, :-1]
+    rows, cols = coords(start)
+    av, bv = a[rows, cols], b[rows, cols]
+    keep = (av > 0) & (bv > 0)
+    if where is not None:
+        keep &= where[rows, cols]
+    if not keep.any():
         return np.zeros((0, 2), np.int64)
-    keys = a.ravel()[idx].astype(np.int64) << 32 | b.ravel()[idx].astype(np.int64)
-    keys = keys[np.r_[True, keys[1:] != keys[:-1]]]  # neighbours along a row mostly repeat: drop them first
-    keys = np.unique(keys)
+    keys = np.unique(av[keep].astype(np.int64) << 32 | bv[keep])
     return np.column_stack([keys >> 32, keys & 0xFFFFFFFF])
+
+
+def pixel_labels(rows: np.ndarray, cols: np.ndarray, shape: tuple[int, int]) -> tuple[int, np.ndarray, tuple[int, int]]:
+    """Label pixels given as coordinates (8-connected) in their bounding box.
+
+    Return (count including 0, label of each pixel, (row0, col0) of the box).
+    """
+    r0, c0 = int(rows.min()), int(cols.min())
+    box = np.zeros((int(rows.max()) - r0 + 1, int(cols.max()) - c0 + 1), bool)
+    box[rows - r0, cols - c0] = True
+    count, labels = label(box, 8)
+    return count, labels[rows - r0, cols - c0], (r0, c0)
+
+
+def coords(mask: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Return (rows, cols) of the true pixels (flatnonzero is several times faster than nonzero in 2-D)."""
+    return np.divmod(np.flatnonzero(mask.ravel()), mask.shape[1])
 
 
 def bbox(mask: np.ndarray) -> tuple[int, int, int, int] | None:

@@ -28,9 +28,10 @@ def revolved(radii_mm, top_mm, segments=256):
 
 
 def hyperbolic_sag(r, n=1.65, f=72.0):
-    """Return the sag of a hyperbolic plano-convex lens face: (n^2 - 1) z^2 + 2 f (n - 1) z = r^2.
+    """Return the sag of a hyperbolic plano-convex lens face: (n^2 - 1) z^2 + 2 (n - 1) f z = r^2.
 
-    Goldsmith, Quasioptical Systems (1998), ch. 9, from memory.
+    Silver, Microwave Antenna Theory and Design (1949), ch. 11; Goldsmith, Quasioptical Systems
+    (1998), ch. 5; from memory.
     """
     a, b = n * n - 1, 2 * f * (n - 1)
     return (-b + np.sqrt(b * b + 4 * a * np.asarray(r, dtype=float) ** 2)) / (2 * a)
@@ -174,8 +175,8 @@ def test_thickness_map_follows_the_lens_profile_within_half_a_layer(make_part):
 
 def test_volumes_agree_with_numpy_stl(make_part, tmp_path):
     """Stack and mesh volumes agree with numpy-stl's volume of the same mesh read from an STL file."""
-    r = np.linspace(10.0, 0.0, 200)
-    lens = revolved(r, lens_thickness(10.0)(r))
+    r = np.linspace(10.0, 0.0, 100)
+    lens = revolved(r, lens_thickness(10.0)(r), segments=128)  # small: numpy-stl checks closure exactly
     tube = Manifold.cylinder(3.0, 4.0, circular_segments=128) - Manifold.cylinder(
         3.2, 2.0, circular_segments=128).translate((0, 0, -0.1))
     for name, shape in (("lens", lens), ("tube", tube)):
@@ -185,11 +186,15 @@ def test_volumes_agree_with_numpy_stl(make_part, tmp_path):
         assert stack_of(part).volume_mm3 == pytest.approx(reference, rel=0.01)
 
 
-@pytest.mark.slow
-def test_demo_parts_agree_with_numpy_stl_at_50_um(make_part, tmp_path):
-    """The 60 mm zoned lens and 30 mm pillar plate hold numpy-stl's volume within 1 % at 50 um."""
-    depth = 299.792458 / 140.0 / 0.65  # lambda / (n - 1) at 140 GHz, n = 1.65
+def demo_zoned_lens():
+    """Return the 60 mm, f = 72 mm zoned lens for 140 GHz (n = 1.65) on a 2 mm base."""
+    depth = 299.792458 / 140.0 / 0.65  # full-wave zone step lambda / (n - 1), shared optics notes section 8
     r, top, _ = zoned_profile(30.0, depth, base=2.0, per_zone=120)
+    return revolved(r, top)
+
+
+def demo_pillar_plate():
+    """Return the 30 mm plate with ~3,000 pillars graded in radius and height (as in benchmarks/)."""
     xs, ys = np.meshgrid(np.arange(-30, 31) * 0.47, np.arange(-30, 31) * 0.47)
     rho = np.hypot(xs, ys)
     keep = rho <= 14.5
@@ -197,11 +202,22 @@ def test_demo_parts_agree_with_numpy_stl_at_50_um(make_part, tmp_path):
         Manifold.cylinder(3.1 - 2.0 * p / 14.5, 0.18 - 0.10 * (p / 14.5) ** 2, circular_segments=32)
         .translate((x, y, 0.9)) for x, y, p in zip(xs[keep], ys[keep], rho[keep])
     ]
-    plate = Manifold.batch_boolean([Manifold.cylinder(1.0, 15.0, circular_segments=256)] + pillars, OpType.Add)
-    for name, shape in (("zoned_lens_60mm", revolved(r, top)), ("pillar_plate_30mm", plate)):
-        part = make_part(shape, name=name)
-        reference = numpy_stl_volume(part, tmp_path)  # numpy-stl, general-purpose STL library
-        assert stack_of(part).volume_mm3 == pytest.approx(reference, rel=0.01), name
+    return Manifold.batch_boolean([Manifold.cylinder(1.0, 15.0, circular_segments=256)] + pillars, OpType.Add)
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("build", [demo_zoned_lens, demo_pillar_plate])
+def test_demo_parts_agree_with_numpy_stl_at_50_um(make_part, tmp_path, build):
+    """The demo parts' layer stacks hold numpy-stl's volume within 1 % at 50 um."""
+    part = make_part(build(), name=build.__name__)
+    reference = numpy_stl_volume(part, tmp_path)  # numpy-stl, general-purpose STL library
+    assert stack_of(part).volume_mm3 == pytest.approx(reference, rel=0.01)
+
+
+def test_lens_profile_matches_the_worked_sag():
+    """The profile used for the reference integrals reproduces the notes' worked hyperbolic sag."""
+    # shared optics notes section 8 [C]: n = 1.67332, f = 100 mm, y = 50 mm -> z = 15.39625 mm
+    assert hyperbolic_sag(50.0, n=1.67332, f=100.0) == pytest.approx(15.39625, abs=1e-5)
 
 
 # --- rasterising -------------------------------------------------------------------------------
@@ -419,6 +435,7 @@ def test_small_chunks_give_the_same_stack_and_bounded_progress(make_part, monkey
 # --- errors and orientation --------------------------------------------------------------------
 
 def test_it_refuses_a_part_off_the_build_plate(make_part):
+    """A part not resting on z = 0 is refused with a hint to orient it."""
     part = make_part(Manifold.cube((1.0, 1.0, 1.0)).translate((0, 0, 0.5)))
     with pytest.raises(UnusableInput) as err:
         stack_of(part)
@@ -427,12 +444,14 @@ def test_it_refuses_a_part_off_the_build_plate(make_part):
 
 @pytest.mark.parametrize("pixel_mm", [0.0, -0.05, float("nan"), float("inf")])
 def test_it_refuses_a_bad_grid(make_part, pixel_mm):
+    """A pixel that is not a positive finite size is refused."""
     with pytest.raises(UnusableInput) as err:
         build_layer_stack(make_part(Manifold.cube((1.0, 1.0, 1.0))), pixel_mm=pixel_mm, layer_height_mm=0.05)
     assert err.value.code == "bad_grid"
 
 
 def test_it_refuses_a_grid_too_large_to_hold(make_part):
+    """A grid beyond the per-layer pixel limit is refused, naming the part."""
     part = make_part(Manifold.cube((1000.0, 1000.0, 1.0)))
     with pytest.raises(UnusableInput) as err:
         build_layer_stack(part, pixel_mm=0.01, layer_height_mm=0.05)
@@ -465,6 +484,7 @@ def test_orient_part_puts_the_chosen_axis_up(make_part, orientation):
 
 
 def test_orient_part_keeps_x_and_y_for_plus_z(make_part):
+    """The file's own +z only moves the part down onto the plate, and the original is untouched."""
     part = make_part(Manifold.cube((2.0, 3.0, 5.0)).translate((1.0, 2.0, 3.0)))
     oriented = orient_part(part, "+z")
     np.testing.assert_array_equal(oriented.vertices_mm[:, :2], part.vertices_mm[:, :2])
@@ -472,6 +492,7 @@ def test_orient_part_keeps_x_and_y_for_plus_z(make_part):
 
 
 def test_orient_part_refuses_an_unknown_axis(make_part):
+    """An axis name outside +z -z +x -x +y -y is refused."""
     with pytest.raises(UnusableInput) as err:
         orient_part(make_part(Manifold.cube((1.0, 1.0, 1.0))), "up")
     assert err.value.code == "bad_orientation"

@@ -39,12 +39,13 @@ def test_it_requires_login(client, db):
 
 def test_it_queues_a_check_after_commit(alice_client, seeded, django_capture_on_commit_callbacks):
     """An upload stores the design, creates a queued check and enqueues it only once committed."""
-    with django_capture_on_commit_callbacks(execute=True) as callbacks:
-        response, delay = _upload(alice_client)
+    with mock.patch("webapp.checks.tasks.run_check.delay") as delay:
+        with django_capture_on_commit_callbacks(execute=True) as callbacks:
+            response, _ = _upload(alice_client)
     check = Check.objects.get()
     assert response.status_code == 302 and response["Location"] == reverse("check", args=[check.public_id])
     assert check.status == "queued" and check.printer_snapshot["slug"] == "bay1-lcd-resin"
-    assert len(callbacks) == 1
+    assert len(callbacks) == 1 and delay.call_args.args == (check.pk,)
 
 
 def test_it_explains_a_bad_frequency_next_to_the_field(alice_client, seeded):

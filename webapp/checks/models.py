@@ -19,6 +19,11 @@ class Design(models.Model):
     size_bytes = models.PositiveBigIntegerField(default=0)
     parameters = models.JSONField(null=True, blank=True)
     revision_of = models.ForeignKey("self", null=True, blank=True, on_delete=models.SET_NULL, related_name="revisions")
+    # Every revision of one design shares its family; the first is revision 1.
+    family = models.UUIDField(default=uuid.uuid4, db_index=True, editable=False)
+    revision = models.PositiveIntegerField(default=1)
+    kind = models.CharField(max_length=20, blank=True, help_text="component kind of a parametric design; blank: a mesh")
+    note = models.CharField(max_length=300, blank=True, help_text="what changed in this revision, in the designer's words")
     created_at = models.DateTimeField(auto_now_add=True)
 
     class Meta:
@@ -27,6 +32,10 @@ class Design(models.Model):
 
     def __str__(self) -> str:
         return self.name
+
+    @property
+    def is_parametric(self) -> bool:
+        return bool(self.kind)
 
 
 class Check(models.Model):

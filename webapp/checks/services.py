@@ -18,6 +18,7 @@ from services.errors import UnusableInput
 from services.intake import UNITS, IntakeLimits, read_part
 from services.report import build_report
 from services.settings import CheckSettings
+from webapp.catalogue.selectors import calibration_for
 from webapp.checks.models import Check, Design
 
 PROGRESS_WRITE_INTERVAL_S = 1.0
@@ -43,8 +44,11 @@ def _clean_name(name: str) -> str:
 
 
 def design_create(*, owner, name: str, data: bytes, units: str = "", parameters: dict | None = None,
-                  revision_of: Design | None = None) -> Design:
-    """Store the bytes under a generated name and record the design; parsing waits for the worker."""
+                  revision_of: Design | None = None, kind: str = "", note: str = "") -> Design:
+    """Store the bytes under a generated name and record the design; parsing waits for the worker.
+
+    A revision joins its parent's family and takes the next revision number in it.
+    """
     if not data:
         raise ApplicationError("empty_file", f"{_clean_name(name)}: the file is empty.")
     if len(data) > settings.PHASEWRIGHT_MAX_UPLOAD_BYTES:
@@ -53,9 +57,18 @@ def design_create(*, owner, name: str, data: bytes, units: str = "", parameters:
     if units and units not in UNITS:
         raise ApplicationError("bad_units", f"Unknown units {units!r}: choose one of {', '.join(UNITS)}.")
     stored = default_storage.save(f"designs/{uuid.uuid4().hex}.bin", ContentFile(data))
+    lineage = _lineage(revision_of)
     return Design.objects.create(owner=owner, name=_clean_name(name), sha256=hashlib.sha256(data).hexdigest(),
                                  units=units, stored_name=stored, size_bytes=len(data), parameters=parameters,
-                                 revision_of=revision_of)
+                                 revision_of=revision_of, kind=kind, note=note[:300], **lineage)
+
+
+def _lineage(revision_of: Design | None) -> dict:
+    """Return the family and revision number of a new design (a fresh family without a parent)."""
+    if revision_of is None:
+        return {}
+    latest = Design.objects.filter(family=revision_of.family).order_by("-revision").values_list("revision", flat=True).first()
+    return {"family": revision_of.family, "revision": (latest or revision_of.revision) + 1}
 
 
 def check_create(*, owner, design: Design, printer, material, check_settings: CheckSettings) -> Check:
@@ -116,7 +129,8 @@ def check_run(*, check_id: int) -> None:
 
             part = replace(part, parameters=check.design.parameters)
         report = build_report(part=part, printer=_snapshot_printer(check), material=_snapshot_material(check),
-                              settings=CheckSettings.from_dict(check.settings), progress=_progress_writer(check_id))
+                              settings=CheckSettings.from_dict(check.settings), progress=_progress_writer(check_id),
+                              calibration=calibration_for(check.printer, check.printer_snapshot))
     except UnusableInput as exc:
         check_fail(check_id=check_id, code=exc.code, message=exc.message)
         return
@@ -153,6 +167,14 @@ def report_store(*, check: Check, report) -> None:
             finished_at=timezone.now(), heartbeat_at=timezone.now(), error="", error_code="")
 
 
+def worker_lost_sentence() -> str:
+    """Return why a check failed after every attempt lost its worker (killed, most often for memory)."""
+    times = {1: "once", 2: "twice", 3: "three times"}.get(settings.PHASEWRIGHT_MAX_ATTEMPTS,
+                                                          f"{settings.PHASEWRIGHT_MAX_ATTEMPTS} times")
+    return (f"The worker was lost {times} while checking this part; the part may exceed the memory limit, "
+            "so simplify the mesh or ask for a larger worker.")
+
+
 def check_requeue_stale(*, now=None, stale_after_s: int | None = None) -> tuple[int, int]:
     """Requeue running checks whose heartbeat went stale; fail those out of attempts. Return (requeued, failed)."""
     from webapp.checks.tasks import run_check
@@ -162,7 +184,7 @@ def check_requeue_stale(*, now=None, stale_after_s: int | None = None) -> tuple[
     stale = Check.objects.filter(status=Check.RUNNING, heartbeat_at__lt=now - timedelta(seconds=stale_after_s))
     lost = stale.filter(attempts__gte=settings.PHASEWRIGHT_MAX_ATTEMPTS)
     failed = lost.update(status=Check.FAILED, error_code="worker_lost", finished_at=now,
-                         error=f"The worker was lost {settings.PHASEWRIGHT_MAX_ATTEMPTS} times; the part may exceed the memory or time limit.")
+                         error=worker_lost_sentence())
     requeued = 0
     for check in stale.filter(attempts__lt=settings.PHASEWRIGHT_MAX_ATTEMPTS):
         if Check.objects.filter(pk=check.pk, status=Check.RUNNING, heartbeat_at=check.heartbeat_at).update(
@@ -176,3 +198,44 @@ def check_requeue_stale(*, now=None, stale_after_s: int | None = None) -> tuple[
             transaction.on_commit(lambda pk=check.pk: run_check.delay(pk))
             requeued += 1
     return requeued, failed
+
+
+def design_create_parametric(*, owner, kind: str, params: dict, printer, material, revision_of: Design | None = None,
+                             note: str = ""):
+    """Build a parametric part for this printer and material, store its mesh as a design; return (design, component).
+
+    The part is built here, not in the worker, so a parameter the builder refuses comes back to
+    the form at once, beside its field.
+    """
+    from services.components import build_component, export_mesh
+
+    component = build_component(kind, params, material=material.snapshot(), printer=printer.snapshot())
+    data = export_mesh(component.part, "stl")
+    design = design_create(owner=owner, name=f"{component.part.name}.stl", data=data, units="mm",
+                           parameters=component.part.parameters, revision_of=revision_of, kind=kind, note=note)
+    return design, component
+
+
+def check_figures(*, check: Check) -> dict[str, bytes]:
+    """Return the stored pictures of a finished check by name (missing files are left out)."""
+    figures = {}
+    for name in (check.report or {}).get("figures", []):
+        path = check.files_prefix() + name
+        if default_storage.exists(path):
+            with default_storage.open(path, "rb") as fh:
+                figures[name] = fh.read()
+    return figures
+
+
+def check_pdf(*, check: Check) -> bytes:
+    """Return the report as a PDF, drawn once from the stored report and pictures and then kept."""
+    from services.pdf_report import report_pdf
+
+    path = check.files_prefix() + "report.pdf"
+    if default_storage.exists(path):
+        with default_storage.open(path, "rb") as fh:
+            return fh.read()
+    link = f"{settings.SITE_ROOT.rstrip('/')}/checks/{check.public_id}/"
+    pdf = report_pdf(check.report, check_figures(check=check), checked_at=check.finished_at or timezone.now(), link=link)
+    default_storage.save(path, ContentFile(pdf))
+    return pdf

@@ -1,50 +1,244 @@
 """The designer's pages. Each view parses, calls one service or selector, renders."""
 
 import mimetypes
+import uuid
 
+from django.contrib import messages
 from django.contrib.auth.decorators import login_required
 from django.core.files.storage import default_storage
-from django.http import FileResponse, Http404, JsonResponse
+from django.http import FileResponse, Http404, HttpResponse, JsonResponse
 from django.shortcuts import redirect, render
-from django.views.decorators.http import require_GET
+from django.urls import NoReverseMatch, reverse
+from django.views.decorators.http import require_GET, require_POST
 
-from webapp.checks import selectors, services
-from webapp.checks.forms import UploadForm
+from services.components import KINDS
+from services.errors import UnusableInput
+from services.settings import CheckSettings
+from webapp.catalogue.selectors import material_list_active, printer_list_active
+from webapp.checks import presenters, selectors, services
+from webapp.checks.forms import ParametricForm, RecheckForm, RevisionForm, UploadForm
+
+
+def _catalogue_facts() -> dict:
+    """Return the key limits of every active printer and material, and which materials each printer takes."""
+    printers = {p.slug: p.snapshot() for p in printer_list_active()}
+    materials = {m.slug: m.snapshot() for m in material_list_active()}
+    return {
+        "printer": {slug: presenters.printer_facts(p.to_dict()) for slug, p in printers.items()},
+        "material": {slug: presenters.material_facts(m.to_dict()) for slug, m in materials.items()},
+        "compatible": {slug: [m for m, mat in materials.items() if presenters.can_print(p, mat)]
+                       for slug, p in printers.items()},
+    }
 
 
 @login_required
 def designs(request):
-    checks = selectors.check_list_for(user=request.user)[:100]
-    return render(request, "checks/designs.html", {"checks": checks})
+    families = selectors.family_list_for(user=request.user)[:100]
+    active = selectors.check_list_active_for(user=request.user)
+    return render(request, "checks/designs.html", {"families": families, "active": active})
 
 
 @login_required
 def upload(request):
     form = UploadForm(request.POST or None, request.FILES or None)
     if request.method == "POST" and form.is_valid():
-        d = form.cleaned_data
+        checks = _create_checks(request, form)
+        if checks:
+            if len(checks) == 1:
+                return redirect("check", public_id=checks[0].public_id)
+            messages.success(request, f"{len(checks)} checks queued; they update here as they run.")
+            return redirect("designs")
+    return _render_form(request, "checks/upload.html", form, {"tab": "mesh"})
+
+
+def _create_checks(request, form, revision_of=None) -> list:
+    """Store each uploaded file as a design and queue its check; form errors for the files that fail."""
+    d, created = form.cleaned_data, []
+    for upload_file in d["file"]:
         try:
-            design = services.design_create(owner=request.user, name=d["file"].name, data=d["file"].read(), units=d["units"])
-            check = services.check_create(owner=request.user, design=design, printer=d["printer"],
-                                          material=d["material"], check_settings=d["check_settings"])
+            design = services.design_create(owner=request.user, name=upload_file.name, data=upload_file.read(),
+                                            units=d["units"], revision_of=revision_of, note=d.get("note", ""))
+            created.append(services.check_create(owner=request.user, design=design, printer=d["printer"],
+                                                 material=d["material"], check_settings=d["check_settings"]))
         except services.ApplicationError as exc:
             form.add_error("file" if exc.code in ("empty_file", "too_large") else None, exc.message)
-        else:
+    return created if not form.errors else _keep_partial(request, created)
+
+
+def _keep_partial(request, created: list) -> list:
+    """Some files failed: keep the checks that were queued and say so above the form."""
+    if created:
+        messages.info(request, f"{len(created)} of the files were queued; the others are listed below the form.")
+    return []
+
+
+def _render_form(request, template: str, form, extra: dict):
+    context = {"form": form, "facts": _catalogue_facts(), "kinds": KINDS, **extra}
+    return render(request, template, context, status=400 if form.errors else 200)
+
+
+@login_required
+def generate(request, kind: str):
+    if kind not in KINDS:
+        raise Http404("No such component kind.")
+    revision_of = _revision_of(request)
+    form = ParametricForm(request.POST or None, kind=kind, initial=_initial_params(revision_of, kind))
+    if request.method == "POST" and form.is_valid():
+        check = _create_parametric(request, form, revision_of)
+        if check is not None:
             return redirect("check", public_id=check.public_id)
-    return render(request, "checks/upload.html", {"form": form}, status=400 if form.errors else 200)
+    return _render_form(request, "checks/generate.html", form, {"tab": kind, "kind": kind, "revision_of": revision_of})
+
+
+def _revision_of(request):
+    public_id = request.GET.get("revision_of") or request.POST.get("revision_of")
+    if not public_id:
+        return None
+    try:
+        return selectors.design_get_for(user=request.user, public_id=uuid.UUID(public_id))
+    except ValueError:
+        raise Http404("No such design.") from None
+
+
+def _initial_params(design, kind: str) -> dict:
+    """Return a parametric design's own parameters as the form's starting values (for a new revision)."""
+    if design is None or design.kind != kind:
+        return {}
+    return {f"part_{k}": v for k, v in (design.parameters or {}).items()}
+
+
+def _create_parametric(request, form, revision_of):
+    d = form.cleaned_data
+    try:
+        design, component = services.design_create_parametric(
+            owner=request.user, kind=form.kind, params=form.params(), printer=d["printer"], material=d["material"],
+            revision_of=revision_of, note=d.get("note", ""))
+        settings = _own_optics(d["check_settings"], component)
+        return services.check_create(owner=request.user, design=design, printer=d["printer"], material=d["material"],
+                                     check_settings=settings)
+    except UnusableInput as exc:
+        form.add_build_error(exc)
+    except services.ApplicationError as exc:
+        form.add_error(None, exc.message)
+    return None
+
+
+def _own_optics(check_settings, component):
+    """Fill empty frequencies and focal length from the generated part (its design frequency or band)."""
+    from dataclasses import replace
+
+    params, optics = component.part.parameters or {}, check_settings.optics
+    freqs = optics.freqs_ghz
+    if not freqs and params.get("freq_ghz"):
+        freqs = (float(params["freq_ghz"]),)
+    elif not freqs and params.get("freq_min_ghz"):
+        lo, hi = float(params["freq_min_ghz"]), float(params["freq_max_ghz"])
+        freqs = tuple(round(lo + i * (hi - lo) / 4, 6) for i in range(5))
+    focal = optics.focal_length_mm if optics.focal_length_mm is not None else component.focal_length_mm
+    return replace(check_settings, optics=replace(optics, freqs_ghz=freqs, focal_length_mm=focal))
 
 
 @login_required
 def design(request, public_id):
     obj = selectors.design_get_for(user=request.user, public_id=public_id)
-    return render(request, "checks/design.html", {"design": obj, "checks": obj.checks.all()})
+    latest = obj.checks.order_by("-created_at").first()
+    return render(request, "checks/design.html", {
+        "design": obj, "checks": obj.checks.select_related("printer", "material"),
+        "revisions": selectors.design_revisions(design=obj),
+        "revision_form": RevisionForm(initial=_initial_options(obj, latest)), "recheck_form": RecheckForm(),
+        "facts": _catalogue_facts()})
+
+
+def _initial_options(design, latest) -> dict:
+    """Return the latest check's choices as a revision form's starting values."""
+    if latest is None:
+        return {"units": design.units}
+    settings = CheckSettings.from_dict(latest.settings)
+    optics = settings.optics
+    return {"printer": latest.printer.slug, "material": latest.material.slug, "units": design.units,
+            "orientation": settings.orientation, "quantities": ", ".join(str(q) for q in settings.quantities),
+            "freqs": ", ".join(f"{f:g}" for f in optics.freqs_ghz), "focal_length_mm": optics.focal_length_mm,
+            "edge_taper_db": optics.edge_taper_db, "beam_waist_mm": optics.beam_waist_mm}
+
+
+@login_required
+@require_POST
+def design_revise(request, public_id):
+    obj = selectors.design_get_for(user=request.user, public_id=public_id)
+    form = RevisionForm(request.POST, request.FILES)
+    if form.is_valid():
+        checks = _create_checks(request, form, revision_of=obj)
+        if checks:
+            return redirect("check", public_id=checks[0].public_id)
+    return render(request, "checks/revise.html", {"design": obj, "form": form, "facts": _catalogue_facts()}, status=400)
+
+
+@login_required
+@require_POST
+def design_recheck(request, public_id):
+    obj = selectors.design_get_for(user=request.user, public_id=public_id)
+    form = RecheckForm(request.POST)
+    latest = obj.checks.order_by("-created_at").first()
+    if not form.is_valid() or latest is None:
+        messages.error(request, "Choose at least one printer and one material.")
+        return redirect("design", public_id=obj.public_id)
+    pairs, skipped = form.pairs()
+    queued = 0
+    try:
+        for printer, material in pairs:
+            services.check_create(owner=request.user, design=obj, printer=printer, material=material,
+                                  check_settings=CheckSettings.from_dict(latest.settings))
+            queued += 1
+    except services.ApplicationError as exc:
+        messages.error(request, exc.message)
+    if skipped:
+        messages.info(request, "Not queued, the printer cannot print the material: " + "; ".join(skipped) + ".")
+    if queued:
+        messages.success(request, f"{queued} check{'s' if queued != 1 else ''} queued; each appears below as it runs.")
+    return redirect("design", public_id=obj.public_id)
 
 
 @login_required
 def check(request, public_id):
     obj = selectors.check_get_for(user=request.user, public_id=public_id)
-    template = "checks/report.html" if obj.status == obj.DONE else "checks/check.html"
-    return render(request, template, {"check": obj, "report": obj.report})
+    if obj.status != obj.DONE:
+        return render(request, "checks/check.html", {
+            "check": obj, "stages": presenters.stage_rows(obj), "advice": presenters.failure_advice(obj.error_code)})
+    return render(request, "checks/report.html", {
+        "check": obj, "report": obj.report, **presenters.report_context(obj.report),
+        "changed": _catalogue_changed(obj), "log_print_url": _log_print_url(obj),
+        "previous": selectors.previous_revision_check(check=obj),
+        "has_touchstone": default_storage.exists(obj.files_prefix() + "transmission.s2p"),
+        "siblings": obj.design.checks.filter(status=obj.DONE).exclude(pk=obj.pk)[:5]})
+
+
+def _catalogue_changed(check) -> list[str]:
+    """Return the catalogue's notes on profiles and materials edited since the check (the catalogue owns them)."""
+    from webapp.catalogue.selectors import catalogue_changed_since
+
+    return catalogue_changed_since(check)
+
+
+def _log_print_url(check) -> str | None:
+    """Return the catalogue's page for logging a real print of this check, when the site has one."""
+    try:
+        return reverse("catalogue:log_create", args=[check.public_id])
+    except NoReverseMatch:
+        return None
+
+
+@login_required
+@require_GET
+def compare(request):
+    try:
+        ids = [uuid.UUID(v) for v in request.GET.getlist("c")][:6]
+    except ValueError:
+        raise Http404("No such check.") from None
+    if len(ids) < 2:
+        messages.info(request, "Tick two or more finished checks to compare them.")
+        return redirect("designs")
+    checks = selectors.checks_get_for(user=request.user, public_ids=ids)
+    return render(request, "checks/compare.html", presenters.comparison(checks))
 
 
 @login_required
@@ -60,7 +254,26 @@ def check_report_json(request, public_id):
     obj = selectors.check_get_for(user=request.user, public_id=public_id)
     if obj.report is None:
         raise Http404("The report is not ready.")
-    return JsonResponse(obj.report, json_dumps_params={"indent": 2})
+    response = JsonResponse(obj.report, json_dumps_params={"indent": 2})
+    response["Content-Disposition"] = f'attachment; filename="{_download_name(obj)}.json"'
+    return response
+
+
+@login_required
+@require_GET
+def check_pdf(request, public_id):
+    obj = selectors.check_get_for(user=request.user, public_id=public_id)
+    if obj.report is None:
+        raise Http404("The report is not ready.")
+    response = HttpResponse(services.check_pdf(check=obj), content_type="application/pdf")
+    response["Content-Disposition"] = f'attachment; filename="{_download_name(obj)}.pdf"'
+    return response
+
+
+def _download_name(check) -> str:
+    stem = check.design.name.rsplit(".", 1)[0]
+    safe = "".join(ch if ch.isalnum() or ch in "-_" else "-" for ch in stem)[:60] or "design"
+    return f"{safe}-{check.printer_snapshot.get('slug', 'printer')}-report"
 
 
 @login_required
@@ -73,5 +286,7 @@ def check_file(request, public_id, name):
     if not default_storage.exists(path):
         raise Http404("No such file in this report.")
     content_type = mimetypes.guess_type(name)[0] or "application/octet-stream"
-    return FileResponse(default_storage.open(path, "rb"), content_type=content_type,
-                        as_attachment=not name.endswith(".png"), filename=name)
+    response = FileResponse(default_storage.open(path, "rb"), content_type=content_type,
+                            as_attachment=not name.endswith(".png"), filename=name)
+    response["Cache-Control"] = "private, max-age=86400"  # a finished report's pictures never change
+    return response

@@ -47,3 +47,67 @@ def coords(values) -> str:
 @register.filter
 def zip_lists(a, b):
     return list(zip(a or [], b or []))
+
+
+@register.filter
+def rule_label(value: str) -> str:
+    from services.report_tables import rule_label as label
+
+    return label(value or "")
+
+
+@register.filter
+def quote_label(value: str) -> str:
+    from services.report_tables import quote_label as label
+
+    return label(value or "")
+
+
+@register.filter
+def where(finding: dict) -> str:
+    from services.report_tables import location_text
+
+    return location_text(finding or {})
+
+
+@register.filter
+def signed(value, digits=2) -> str:
+    """Return a delta with its sign ('+1.20', '-0.30', '0.00'); empty for None."""
+    try:
+        v = float(value)
+    except (TypeError, ValueError):
+        return ""
+    return f"{v:+,.{int(digits)}f}" if round(v, int(digits)) else f"{0:.{int(digits)}f}"
+
+
+@register.filter
+def signed_duration(seconds) -> str:
+    """Return a time delta as '+12 min' or '-1 h 05 min'."""
+    try:
+        v = float(seconds)
+    except (TypeError, ValueError):
+        return ""
+    return ("-" if v < 0 else "+") + duration(abs(v))
+
+
+@register.filter
+def get(mapping, key):
+    try:
+        return mapping.get(key)
+    except AttributeError:
+        return None
+
+
+@register.filter
+def percent(value, digits=0) -> str:
+    try:
+        return f"{float(value) * 100:.{int(digits)}f} %"
+    except (TypeError, ValueError):
+        return ""
+
+
+@register.filter
+def label_of_stage(value: str) -> str:
+    from webapp.checks.presenters import STAGES
+
+    return dict(STAGES).get(value, value.replace("_", " ") if value else "")

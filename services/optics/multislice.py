@@ -1,0 +1,231 @@
+"""Split-step (multi-slice) propagation of the beam up through the part: the thick-element model.
+
+The part is cut along z into slices of a few per wavelength in the material. Each slice delays
+the field by its own index map, exp(-j k0 (n_eff(x, y) - 1) dz) with the slice's layers summed
+exactly, and between slices the field travels through air with the angular-spectrum kernel
+(Goodman, Fourier Optics, 2005, section 3.10), symmetrically: half a slice, screen, a slice,
+screen, ..., half a slice. This is the scalar, forward-only beam-propagation method (Feit &
+Fleck, Appl. Opt. 17, 3990, 1978; from memory). Air is the reference medium because the oblique
+rays of a lens travel in air (above a curved face, beside a zone wall); inside the material the
+beam runs close to the axis, where a phase screen is accurate. So a wave bends at a curved face
+and a thick lens focuses where its profile says, where one thin screen at the top plane would
+add spherical aberration. Loss comes from Im n in every slice; the reflections at the faces are
+not in a forward march, and the caller puts them back from the transfer matrices.
+
+Engineering sign (e^{+j omega t}): a forward wave is e^{-j kz z}, evanescent waves decay.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import fft as sfft
+
+from services.optics.cells import CellGrid
+from services.optics.effective_medium import effective_permittivity
+
+ABSORBER_WAVELENGTHS = 2.0  # absorbing margin around the window: light leaving the part sideways does not wrap round
+SOLID, VOID = 1 - 1e-6, 1e-6  # fill fractions this close to 1 or 0 count as solid or air (pixel-count rounding)
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class Beam:
+    """The illumination on the part's bottom face, on the sub-cells, and how finely to march it.
+
+    field : (ny * sub, nx * sub), the incident field on ``grid.subdivided(sub)`` (zero off the aperture)
+    slice_mm : the longest step along z; pad_mm : the absorbing margin around the window
+    """
+
+    field: np.ndarray
+    grid: CellGrid
+    sub: int
+    slice_mm: float
+    pad_mm: float
+
+    @property
+    def fine(self) -> CellGrid:
+        return self.grid.subdivided(self.sub)
+
+
+class Window:
+    """The padded FFT window around the sub-cells: air kernels, absorbing margin, cell sampling.
+
+    k0 : (nf,) free-space wavenumbers in rad/mm. Kernels are complex64 (nf, Py, Px); the march
+    keeps its field in complex64 too, which holds phase to far below a milliradian here.
+    """
+
+    def __init__(self, beam: Beam, k0: np.ndarray) -> None:
+        fine = beam.fine
+        self.shape, self.cell_mm, self.sub = fine.shape, fine.cell_mm, beam.sub
+        pad = math.ceil(beam.pad_mm / fine.cell_mm)
+        self.padded = tuple(sfft.next_fast_len(n + 2 * pad) for n in fine.shape)
+        self.offset = tuple((p - n) // 2 for p, n in zip(self.padded, fine.shape))
+        self.k0 = np.asarray(k0, dtype=float)
+        ky = 2 * np.pi * sfft.fftfreq(self.padded[0], d=self.cell_mm)[:, None]
+        kx = 2 * np.pi * sfft.fftfreq(self.padded[1], d=self.cell_mm)[None, :]
+        arg = self.k0[:, None, None] ** 2 - (kx**2 + ky**2)[None]
+        root = np.sqrt(np.abs(arg)).astype(np.float32)
+        # kz of the propagating waves, and the decay rate of the evanescent ones (the rest of the window)
+        self.kz = np.where(arg >= 0, root, np.float32(0))
+        self.decay = np.where(arg < 0, root, np.float32(0))
+        self.absorber = (_absorber(self.padded[0], self.offset[0], fine.shape[0])[:, None]
+                         * _absorber(self.padded[1], self.offset[1], fine.shape[1])[None, :]).astype(np.float32)
+        self._kernels: dict[float, np.ndarray] = {}
+
+    @property
+    def inner(self) -> tuple[slice, slice]:
+        """Return the sub-cells' place in the padded window."""
+        return (slice(self.offset[0], self.offset[0] + self.shape[0]),
+                slice(self.offset[1], self.offset[1] + self.shape[1]))
+
+    def kernel(self, distance_mm: float, keep: bool) -> np.ndarray:
+        """Return exp(-j kz d), cached when ``keep`` (the one full-slice step a march repeats)."""
+        key = round(distance_mm, 9)
+        if key in self._kernels:
+            return self._kernels[key]
+        phase = self.kz * np.float32(distance_mm)
+        h = np.empty(phase.shape, dtype=np.complex64)
+        h.real, h.imag = np.cos(phase), -np.sin(phase)
+        h *= np.exp(-self.decay * np.float32(distance_mm))
+        if keep:
+            self._kernels[key] = h
+        return h
+
+    def embed(self, field: np.ndarray) -> np.ndarray:
+        """Return the field on the padded window, once per frequency, complex64."""
+        big = np.zeros((len(self.k0), *self.padded), dtype=np.complex64)
+        big[(slice(None), *self.inner)] = field
+        return big
+
+    def cells(self, spectrum: np.ndarray) -> np.ndarray:
+        """Return the band-limited field at the analysis cells' centres from its padded spectrum.
+
+        The field is band-limited to the cells' Nyquist band (which holds every propagating wave
+        when a cell is below lambda/2) and evaluated at the cell centres by a matrix DFT per axis,
+        so sub-cell detail that cannot reach the focus does not alias into the cells.
+        """
+        (py, px), nf = self.padded, spectrum.shape[0]
+        if self.sub == 1:
+            return sfft.ifft2(spectrum, workers=-1)[(slice(None), *self.inner)]
+        ay, keep_y = self._samples(0)
+        ax, keep_x = self._samples(1)
+        band = spectrum[:, keep_y][:, :, keep_x].astype(np.complex128)
+        return (ay[None] @ band @ ax.T[None]).reshape(nf, len(ay), len(ax)) / (py * px)
+
+    def _samples(self, axis: int) -> tuple[np.ndarray, np.ndarray]:
+        p, n = self.padded[axis], self.shape[axis] // self.sub
+        k = np.rint(sfft.fftfreq(p) * p)
+        keep = np.abs(k) < p / (2 * self.sub)
+        # Cell c's centre is the middle of its sub-cells: sub-cell c sub + (sub - 1) / 2.
+        at = self.offset[axis] + np.arange(n) * self.sub + (self.sub - 1) / 2
+        return np.exp(2j * np.pi * np.outer(at, k[keep]) / p), keep
+
+
+def _absorber(padded: int, offset: int, n: int) -> np.ndarray:
+    """Return 1 on the sub-cells, falling as cos^2 to 0 halfway round the periodic margin."""
+    i = np.arange(padded)
+    outside = np.maximum(offset - i, 0) + np.maximum(i - (offset + n - 1), 0)
+    outside = np.minimum(outside, padded - n + 1 - outside)  # the margin is one piece on a periodic window
+    half = max((padded - n) / 2, 1.0)
+    return np.cos(np.pi / 2 * np.clip(outside / half, 0, 1)) ** 2
+
+
+class March:
+    """One model's field climbing through the part, one slice of ``layers_per_slice`` layers at a time.
+
+    ``add`` takes the runs of identical layers bottom first, with their fill on the sub-cells;
+    ``finish`` returns the field's spectrum at the top of the stack (the exit plane).
+    """
+
+    def __init__(self, window: Window, beam: Beam, *, eps: np.ndarray, model: str, layer_mm: float,
+                 layers_per_slice: int, count: int) -> None:
+        self.window, self.eps, self.model = window, np.asarray(eps), model
+        self.layer_mm, self.per_slice, self.count = layer_mm, layers_per_slice, count
+        self.field = window.embed(beam.field)
+        self.pending_mm = 0.0
+        self.slice = 0
+        self.sum = _SliceSum(window.shape)
+
+    def add(self, first: int, last: int, fill: np.ndarray) -> None:
+        """Add the layers first..last (inclusive), all of sub-cell fill ``fill``."""
+        parts = _Parts.of(fill)
+        layer = first
+        while layer <= last:
+            end = min(last + 1, (self.slice + 1) * self.per_slice)
+            self.sum.add(parts, end - layer)
+            layer = end
+            if end == (self.slice + 1) * self.per_slice or end == self.count:
+                self._step(end - self.slice * self.per_slice)
+                self.slice += 1
+
+    def finish(self) -> np.ndarray:
+        """Return the spectrum (fft2 on the padded window) of the field at the top of the stack."""
+        spectrum = sfft.fft2(self.field, workers=-1)
+        if self.pending_mm > 0:
+            spectrum *= self.window.kernel(self.pending_mm, keep=False)
+        return spectrum
+
+    def _step(self, layers: int) -> None:
+        """Travel up to the slice's middle, take its delay, and leave the second half pending."""
+        dz = layers * self.layer_mm
+        self._travel(self.pending_mm + dz / 2, keep=layers == self.per_slice)
+        self.field[(slice(None), *self.window.inner)] *= self.sum.screen(self.window.k0, self.eps, self.model,
+                                                                         self.layer_mm)
+        self.pending_mm = dz / 2
+        self.sum = _SliceSum(self.window.shape)
+
+    def _travel(self, distance_mm: float, keep: bool) -> None:
+        if distance_mm <= 0:
+            return
+        spectrum = sfft.fft2(self.field, workers=-1, overwrite_x=True)
+        spectrum *= self.window.kernel(distance_mm, keep)
+        self.field = sfft.ifft2(spectrum, workers=-1, overwrite_x=True)
+        self.field *= self.window.absorber
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class _Parts:
+    """A sub-cell fill map split into its solid sub-cells and its partly filled ones (few: the boundaries)."""
+
+    solid: np.ndarray      # (ny, nx) bool
+    index: np.ndarray      # (k,) flat indices of the partly filled sub-cells
+    fill: np.ndarray       # (k,) their fill
+
+    @classmethod
+    def of(cls, fill: np.ndarray) -> _Parts:
+        flat = fill.ravel()
+        index = np.flatnonzero((flat > VOID) & (flat < SOLID))
+        return cls(fill >= SOLID, index, flat[index])
+
+
+class _SliceSum:
+    """The layers of one slice: solid layers per sub-cell, and the partly filled sub-cells' layers."""
+
+    def __init__(self, shape: tuple[int, int]) -> None:
+        self.solid = np.zeros(shape, dtype=np.int32)
+        self.parts: list[tuple[_Parts, int]] = []
+
+    def add(self, parts: _Parts, layers: int) -> None:
+        self.solid += parts.solid * np.int32(layers)
+        if len(parts.index):
+            self.parts.append((parts, layers))
+
+    def screen(self, k0: np.ndarray, eps: np.ndarray, model: str, layer_mm: float) -> np.ndarray:
+        """Return exp(-j k0 sum (n_eff - 1) d) over the slice's layers, (nf, ny, nx) complex64."""
+        n = np.sqrt(eps + 0j)
+        most = int(self.solid.max())
+        table = np.exp(-1j * k0[:, None] * (n - 1)[:, None] * (np.arange(most + 1) * layer_mm)[None, :])
+        out = table.astype(np.complex64)[:, self.solid.ravel()]
+        if self.parts:
+            index = np.concatenate([p.index for p, _ in self.parts])
+            fill = np.concatenate([p.fill for p, _ in self.parts])
+            depth = np.concatenate([np.full(len(p.index), m * layer_mm) for p, m in self.parts])
+            n_eff = np.sqrt(effective_permittivity(fill[None, :], eps[:, None], model) + 0j)
+            delay = (n_eff - 1) * depth[None, :]
+            unique, where = np.unique(index, return_inverse=True)
+            total = np.array([np.bincount(where, d.real, len(unique)) + 1j * np.bincount(where, d.imag, len(unique))
+                              for d in delay])
+            out[:, unique] *= np.exp(-1j * k0[:, None] * total).astype(np.complex64)
+        return out.reshape(len(k0), *self.solid.shape)

@@ -1,0 +1,102 @@
+"""What the rule families share: limits from the profile, grouping into instances, findings with pictures."""
+
+from __future__ import annotations
+
+import numpy as np
+from scipy.sparse import coo_matrix
+from scipy.sparse.csgraph import connected_components
+
+from services import pictures
+from services.findings import SEVERITIES, Finding
+from services.rules import RuleOutput
+
+
+def limit_mm(limits: dict, key: str) -> float | None:
+    """Return a positive numeric limit from a rule's limits, or None when the profile lacks it."""
+    value = limits.get(key)
+    if isinstance(value, bool) or not isinstance(value, (int, float)) or not value > 0:
+        return None
+    return float(value)
+
+
+def severity_of(limits: dict, key: str = "severity") -> str | None:
+    value = limits.get(key)
+    return value if value in SEVERITIES else None
+
+
+def missing_note(rule: str, printer, what: str) -> Finding:
+    """Return the note a rule leaves when the profile lacks a limit it needs (no guessing)."""
+    return Finding(rule, "note", f"Not checked: printer profile {printer.name!r} gives no {what}.")
+
+
+class Groups:
+    """Components found run by run, joined into instances where they touch from one run to the next.
+
+    Each component carries a value (smaller is worse unless ``worst="max"``), the flat frame index
+    of its worst pixel and the layers it spans.
+    """
+
+    def __init__(self, worst: str = "min") -> None:
+        self.worst = worst
+        self._parts: list[tuple[np.ndarray, ...]] = []
+        self._links: list[np.ndarray] = []
+        self.size = 0
+
+    def add(self, values, at, first: int, last: int, weight=None) -> np.ndarray:
+        """Add components of one run; return their ids."""
+        values = np.asarray(values, np.float64)
+        n = values.size
+        ids = np.arange(self.size, self.size + n)
+        weight = np.ones(n) if weight is None else np.asarray(weight, np.float64)
+        self._parts.append((values, np.asarray(at, np.int64), np.full(n, first), np.full(n, last), weight))
+        self.size += n
+        return ids
+
+    def link(self, a: np.ndarray, b: np.ndarray) -> None:
+        """Join components a[i] and b[i] into one instance."""
+        if len(a):
+            self._links.append(np.column_stack([a, b]).astype(np.int64))
+
+    def instances(self) -> dict[str, np.ndarray]:
+        """Return per instance: value, at, layer (of the worst), first, last, weight (summed)."""
+        if self.size == 0:
+            return {k: np.zeros(0) for k in ("value", "at", "layer", "first", "last", "weight")}
+        values, at, first, last, weight = (np.concatenate(c) for c in zip(*self._parts))
+        edges = np.concatenate(self._links) if self._links else np.zeros((0, 2), np.int64)
+        graph = coo_matrix((np.ones(len(edges)), (edges[:, 0], edges[:, 1])), shape=(self.size, self.size))
+        n, group = connected_components(graph, directed=False)
+        key = values if self.worst == "min" else -values
+        order = np.lexsort((key, group))
+        head = order[np.r_[True, group[order][1:] != group[order][:-1]]]  # worst component of each instance
+        lo = np.full(n, np.iinfo(np.int64).max)
+        hi = np.full(n, -1)
+        np.minimum.at(lo, group, first)
+        np.maximum.at(hi, group, last)
+        total = np.bincount(group, weights=weight, minlength=n)
+        g = group[head]
+        return {"value": values[head], "at": at[head], "layer": first[head], "first": lo[g], "last": hi[g],
+                "weight": total[g]}
+
+
+def picture(frame, *, layer: int, flat: int, highlight: np.ndarray, title: str, half_px: int) -> bytes:
+    """Return a PNG crop of a layer around a frame pixel: material, highlighted pixels, mm scale bar."""
+    mask = frame.layer(layer)
+    r, c = divmod(int(flat), frame.nx)
+    half = int(min(max(half_px, 24), 400))
+    r0, r1 = max(r - half, 0), min(r + half + 1, frame.ny)
+    c0, c1 = max(c - half, 0), min(c + half + 1, frame.nx)
+    return pictures.layer_crop_png(mask[r0:r1, c0:c1], highlight[r0:r1, c0:c1] & True,
+                                   pixel_mm=frame.px, title=title)
+
+
+def output(findings: list[Finding], figures: dict | None = None, summary: dict | None = None) -> RuleOutput:
+    return RuleOutput(tuple(findings), figures or {}, summary or {})
+
+
+def fmt_mm(value: float) -> str:
+    """Return a length for a message: 0.12 mm, 1.5 mm, 12 mm."""
+    return f"{value:.3g}"
+
+
+def fmt_xyz(location: tuple[float, float, float]) -> str:
+    return "({:.2f}, {:.2f}, {:.2f}) mm".format(*location)

@@ -1,0 +1,325 @@
+"""One pass over the layer stack's runs, shared by the rule families.
+
+Each rule family brings a collector (``visit(view)`` per run of identical layers, then ``finish()``);
+``outputs`` runs the enabled ones together so a raster is unpacked, labelled and measured once, and
+keeps the last stack's outputs so each family's ``check`` can pick up its own.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import math
+from collections.abc import Callable
+from functools import cached_property
+
+import cv2
+import numpy as np
+
+from services.rules import raster
+
+_cache: dict = {}
+
+
+def outputs(stack, part, printer, families: dict[str, Callable],
+            progress: Callable[[float], None] | None = None) -> dict:
+    """Return {family: RuleOutput} for the families enabled on this printer, computing them once."""
+    key = (_fingerprint(stack), id(part), repr(printer), tuple(families))
+    if _cache.get("key") != key:
+        _cache.clear()
+        _cache["value"] = _run(stack, part, printer, families, progress)
+        _cache["key"] = key
+    return _cache["value"]
+
+
+def _fingerprint(stack) -> tuple:
+    """Return a key that tells stacks apart without holding on to one (ids alone can be reused)."""
+    digest = hashlib.blake2b(np.ascontiguousarray(stack.area_mm2).tobytes(), digest_size=16).hexdigest()
+    return id(stack), stack.count, stack.shape, stack.origin_mm, stack.pixel_mm, stack.layer_height_mm, digest
+
+
+def _run(stack, part, printer, families: dict[str, Callable], progress=None) -> dict:
+    collectors = {name: make(stack=stack, part=part, printer=printer) for name, make in families.items()}
+    active = [c for c in collectors.values() if c.active]
+    frame = Frame(stack, max([2] + [c.pad_px for c in active]))
+    wants = {want for c in active for want in getattr(c, "needs", ())}
+    below = BelowTop(frame) if wants else None
+    frame.bounded = Bounded(frame) if "bounded" in wants else None
+    prev, reported = None, 0.0
+    for index, (first, last, mask) in enumerate(stack.runs()):
+        view = RunView(frame, index, first, last, frame.pad_mask(mask), prev, below)
+        for collector in active:
+            if hasattr(collector, "prepare"):
+                collector.prepare(view)
+        for collector in active:
+            collector.visit(view)
+        if frame.bounded is not None:
+            frame.bounded.update(view, below)
+        if below is not None:
+            below.update(view)
+        if prev is not None:
+            prev.forget()
+        prev = view
+        if progress is not None and (last + 1) / stack.count - reported >= 1 / 32:
+            reported = (last + 1) / stack.count
+            progress(0.9 * reported)
+    return {name: c.finish(frame) for name, c in collectors.items()}
+
+
+class Frame:
+    """The stack's grid with a void margin, so morphology and labels never meet the array edge."""
+
+    def __init__(self, stack, pad: int) -> None:
+        self.stack = stack
+        self.pad = int(pad)
+        self.ny, self.nx = stack.shape[0] + 2 * self.pad, stack.shape[1] + 2 * self.pad
+        self.px = stack.pixel_mm
+        self.dz = stack.layer_height_mm
+        self.bounded: Bounded | None = None  # roofed voids, when a family asks for them
+
+    def pad_mask(self, mask: np.ndarray) -> np.ndarray:
+        out = np.zeros((self.ny, self.nx), bool)
+        out[self.pad:self.ny - self.pad, self.pad:self.nx - self.pad] = mask
+        return out
+
+    def layer(self, k: int) -> np.ndarray:
+        """Return layer k on the padded frame."""
+        return self.pad_mask(self.stack.layer(k))
+
+    def xy_mm(self, flat: int | np.ndarray) -> tuple:
+        """Return the (x, y) pixel-centre coordinates of flat frame indices, in mm."""
+        r, c = np.divmod(np.asarray(flat), self.nx)
+        x = self.stack.origin_mm[0] + (c - self.pad + 0.5) * self.px
+        y = self.stack.origin_mm[1] + (r - self.pad + 0.5) * self.px
+        return x, y
+
+    def z_mm(self, k: int | np.ndarray):
+        """Return the height of layer k's centre in mm."""
+        return self.stack.origin_mm[2] + (np.asarray(k) + 0.5) * self.dz
+
+    def location(self, flat: int, k: int) -> tuple[float, float, float]:
+        x, y = self.xy_mm(int(flat))
+        return round(float(x), 4), round(float(y), 4), round(float(self.z_mm(k)), 4)
+
+
+class BelowTop:
+    """Per pixel column, the top (mm) of the last solid met so far going up; -1 where none yet."""
+
+    def __init__(self, frame: Frame) -> None:
+        self.top_mm = np.full((frame.ny, frame.nx), -1.0, np.float32)
+
+    def update(self, view: RunView) -> None:
+        np.copyto(self.top_mm, np.float32(view.z_hi), where=view.mask)
+
+
+class Bounded:
+    """Void with solid below and above it in the same pixel column: the lowest such gap's height and base.
+
+    Kept per column (a 2-D map), so gaps stacked over one another in one column keep only the
+    smallest: the one most likely to close.
+    """
+
+    def __init__(self, frame: Frame) -> None:
+        self.height_mm = np.full((frame.ny, frame.nx), np.inf, np.float32)
+        self.base_mm = np.zeros((frame.ny, frame.nx), np.float32)
+        self._instances = None
+
+    def update(self, view: RunView, below: BelowTop) -> None:
+        if view.prev is None:
+            return
+        roof = view.new & (below.top_mm >= 0)
+        if not roof.any():
+            return
+        base = below.top_mm[roof]
+        gap = np.float32(view.z_lo) - base
+        better = gap < self.height_mm[roof]
+        rows, cols = np.nonzero(roof)
+        self.height_mm[rows[better], cols[better]] = gap[better]
+        self.base_mm[rows[better], cols[better]] = base[better]
+
+    def instances(self) -> dict[str, np.ndarray]:
+        """Return each roofed void (2-D footprint): tallest height, footprint width, where, base."""
+        if self._instances is None:
+            self._instances = self._measure()
+        return self._instances
+
+    def _measure(self) -> dict[str, np.ndarray]:
+        footprint = np.isfinite(self.height_mm)
+        count, labels = raster.label(footprint, 8)
+        height, at = raster.per_label_max(np.where(footprint, self.height_mm, 0), labels, count, footprint)
+        dist = cv2.distanceTransform(footprint.view(np.uint8), cv2.DIST_L2, 5)
+        deep, _ = raster.per_label_max(dist, labels, count, footprint)
+        return {"labels": labels, "height_mm": height[1:], "at": at[1:], "width_px": 2 * deep[1:] - 1,
+                "base_mm": self.base_mm.ravel()[at[1:]]}
+
+
+class RunView:
+    """One run of identical layers on the frame, with what the rules ask of it, each computed once."""
+
+    def __init__(self, frame: Frame, index: int, first: int, last: int, mask: np.ndarray,
+                 prev: RunView | None, below: BelowTop | None) -> None:
+        self.frame = frame
+        self.index, self.first, self.last = index, first, last
+        self.mask = mask
+        self.prev = prev
+        self.below = below
+        self.z_lo = first * frame.dz
+        self.z_hi = (last + 1) * frame.dz
+
+    @property
+    def layers(self) -> int:
+        return self.last - self.first + 1
+
+    def forget(self) -> None:
+        """Drop what only the next run needed (its previous run's rasters)."""
+        self.prev = None
+
+    @cached_property
+    def solid(self) -> tuple[int, np.ndarray]:
+        """Return (count, labels) of the layer's sections, 8-connected: material with its holes filled.
+
+        A tube or a hollow box is one section as wide as its outline, so its walls count as walls,
+        not as free-standing fins (a part standing inside another's cavity joins that section).
+        """
+        return raster.label(self.filled, 8)
+
+    @cached_property
+    def filled(self) -> np.ndarray:
+        """Return the material with the void it encloses in this layer."""
+        return self.mask | self.enclosed
+
+    @cached_property
+    def dist(self) -> np.ndarray:
+        """Return each pixel's distance (px) to the nearest open-air pixel centre (holes filled)."""
+        return cv2.distanceTransform(self.filled.view(np.uint8), cv2.DIST_L2, 5)
+
+    @cached_property
+    def widths(self) -> tuple[np.ndarray, np.ndarray]:
+        """Return (approximate width px, flat index of its widest point) per section, from a half grid.
+
+        The distance map of every second row and column costs a quarter of the full one; width is
+        4 d - 1 (d in half-grid pixels), within about two pixels. Sections too small to be sampled get
+        1.5 px. ``exact_widths`` and ``refine_width`` give more where it matters.
+        """
+        count, labels = self.solid
+        half = np.ascontiguousarray(self.filled[::2, ::2])
+        dist = cv2.distanceTransform(half.view(np.uint8), cv2.DIST_L2, 5)
+        sub = labels[::2, ::2]
+        deep, at = raster.per_label_max(dist, sub, count, raster.ridge(dist, half))
+        rows, cols = np.divmod(np.maximum(at, 0), half.shape[1])
+        at = np.where(at >= 0, 2 * rows * self.mask.shape[1] + 2 * cols, -1)
+        width = np.where(np.isfinite(deep), 4 * deep - 1, 1.5)
+        width[0] = 0.0
+        return width, at
+
+    @cached_property
+    def exact_widths(self) -> tuple[np.ndarray, np.ndarray]:
+        """Return (width px, flat index of its widest point) per section: twice the inscribed radius.
+
+        Width = 2 d - 1 at the section's deepest pixel, d its distance to the nearest void pixel
+        centre: exact for a wall an odd number of pixels wide, one pixel low for an even one
+        (``refine_width`` settles those that matter).
+        """
+        count, labels = self.solid
+        deep, at = raster.per_label_max(self.dist, labels, count, raster.ridge(self.dist, self.filled))
+        width = np.where(np.isfinite(deep), 2 * deep - 1, 0.0)
+        width[0] = 0.0
+        return width, at
+
+    @cached_property
+    def solid_links(self) -> np.ndarray:
+        """Return (k, 2) pairs (section label in the previous run, here) that overlap.
+
+        Sampled on every second row and column: a contact narrower than two pixels may be missed, so
+        a section may start a feature of its own there (islands are found pixel by pixel elsewhere).
+        """
+        if self.prev is None:
+            return np.zeros((0, 2), np.int64)
+        return raster.overlap_pairs(self.prev.solid[1], self.solid[1], step=2)
+
+    @cached_property
+    def new(self) -> np.ndarray:
+        """Return the solid that the layer below does not have (everything on the first layer)."""
+        return self.mask & ~self.prev.mask if self.prev is not None else self.mask.copy()
+
+    @cached_property
+    def void(self) -> tuple[int, np.ndarray, np.ndarray]:
+        """Return (count, labels, outside) of the void, 4-connected; outside[l] marks the open air.
+
+        The frame's margin is void all round, so the open air is the one label at its corner.
+        """
+        count, labels = raster.label(~self.mask, 4)
+        outside = np.zeros(count, bool)
+        outside[labels[0, 0]] = True
+        return count, labels, outside
+
+    @cached_property
+    def enclosed(self) -> np.ndarray:
+        """Return the void pixels enclosed by solid in this layer (holes, cavities, grooves)."""
+        count, labels, _ = self.void
+        if count <= 2:
+            return np.zeros_like(self.mask)
+        return (labels != labels[0, 0]) & ~self.mask
+
+    @cached_property
+    def enclosed_index(self) -> np.ndarray:
+        """Return the flat indices of the enclosed void pixels."""
+        return np.flatnonzero(self.enclosed.ravel())
+
+    @cached_property
+    def enclosed_labels(self) -> np.ndarray:
+        """Return the void label of each enclosed pixel (in ``enclosed_index`` order)."""
+        return self.void[1].ravel()[self.enclosed_index]
+
+    @cached_property
+    def void_area(self) -> np.ndarray:
+        """Return the pixel count of each enclosed void label (0 for the open air)."""
+        return np.bincount(self.enclosed_labels, minlength=self.void[0])
+
+    @cached_property
+    def void_links(self) -> np.ndarray:
+        """Return (k, 2) pairs (void label in the previous run, here) overlapping where either is enclosed.
+
+        Sampled on every second row and column; a pocket with no pair at all is checked pixel by pixel.
+        """
+        if self.prev is None:
+            return np.zeros((0, 2), np.int64)
+        prev_labels, labels = self.prev.void[1], self.void[1]
+        where = self.enclosed[::2, ::2] | self.prev.enclosed[::2, ::2]
+        pairs = raster.overlap_pairs(prev_labels[::2, ::2], labels[::2, ::2], where)
+        extra = [pairs]
+        for side, view, other in ((1, self, prev_labels), (0, self.prev, labels)):
+            seen = np.zeros(view.void[0], bool)
+            seen[pairs[:, side]] = True
+            lonely = np.flatnonzero(~seen & (view.void_area > 0))
+            if lonely.size:  # pockets the sampling may have missed: check them pixel by pixel
+                here = view.enclosed_index[np.isin(view.enclosed_labels, lonely)]
+                found = np.column_stack([other.ravel()[here], view.void[1].ravel()[here]]).astype(np.int64)
+                extra.append(found[found[:, 0] > 0][:, ::-1] if side == 0 else found[found[:, 0] > 0])
+        return np.unique(np.concatenate(extra), axis=0) if len(extra) > 1 else pairs
+
+
+def refine_width(mask: np.ndarray, flat: int, coarse_px: float) -> float:
+    """Return the width (px) of the section around pixel ``flat``: twice its inscribed radius, refined.
+
+    The radius comes from a 2x finer distance map: there every wall is an even number of sub-pixels
+    wide, its ridge a two-sub-pixel plateau, and the largest distance (in sub-pixels) equals the wall's
+    width in pixels, exact for straight walls. A digitised round section is about a pixel narrower
+    inside than drawn (its staircase cuts the rim), so for a compact section (one whose area is close
+    to its inscribed disk's) the width is the mean of that and its area-equivalent diameter: within
+    about half a pixel for discs and squares.
+    """
+    r, c = divmod(int(flat), mask.shape[1])
+    reach = int(math.ceil(coarse_px)) + 4
+    r0, c0 = max(r - reach, 0), max(c - reach, 0)
+    crop = mask[r0:r + reach + 1, c0:c + reach + 1]
+    fine = np.zeros((crop.shape[0] * 2 + 2, crop.shape[1] * 2 + 2), np.uint8)
+    fine[1:-1, 1:-1] = np.repeat(np.repeat(crop, 2, axis=0), 2, axis=1)
+    sub = cv2.distanceTransform(fine, cv2.DIST_L2, cv2.DIST_MASK_PRECISE)
+    y, x = 2 * (r - r0) + 1, 2 * (c - c0) + 1
+    inscribed = float(sub[y - 2:y + 4, x - 2:x + 4].max())
+    _, labels = cv2.connectedComponents(crop.view(np.uint8), connectivity=8)
+    own = labels == labels[r - r0, c - c0]
+    if own[0].any() or own[-1].any() or own[:, 0].any() or own[:, -1].any():
+        return inscribed  # reaches past the crop: elongated, not compact
+    equivalent = math.sqrt(4 * float(own.sum()) / math.pi)
+    return (inscribed + equivalent) / 2 if equivalent <= 1.25 * inscribed + 1 else inscribed

@@ -1,0 +1,66 @@
+"""At-least-once delivery made safe: a killed worker costs an attempt, never a check or a second report.
+
+Real worker processes on a private Redis; the maintenance job (check_requeue_stale) is called the way
+the timer calls it, with a stale age scaled down from production's 2 x the soft limit.
+"""
+
+import os
+import signal
+
+import pytest
+
+from tests.reliability.helpers import assert_one_report, child_pids, kill_group, sphere_stl, submit
+from tests.reliability.servers import wait_until
+from tests.webapp.worker import worker_process
+from webapp.checks.models import Check
+from webapp.checks.services import check_requeue_stale, worker_lost_sentence
+
+pytestmark = [pytest.mark.slow, pytest.mark.django_db(transaction=True)]
+
+STALE_AFTER_S = 3
+
+
+def _state(check: Check) -> Check:
+    check.refresh_from_db()
+    return check
+
+
+def _requeue_when_stale() -> bool:
+    requeued, _ = check_requeue_stale(stale_after_s=STALE_AFTER_S)
+    return requeued > 0
+
+
+def test_a_check_whose_worker_is_killed_completes_on_another(alice, seeded, redis):
+    """SIGKILL of the whole worker mid-check: the job requeues it, worker B finishes it, one report, attempts 2."""
+    with worker_process(redis_url=redis.url) as worker_a:
+        check = submit(alice, sphere_stl(8.0), "ball.stl")
+        wait_until(lambda: _state(check).status == "running" and check.progress > 0, timeout_s=120,
+                   what="worker A starting the check")
+        with worker_process(redis_url=redis.url) as worker_b:
+            kill_group(worker_a)
+            wait_until(_requeue_when_stale, timeout_s=60, what="the maintenance job requeueing the check")
+            wait_until(lambda: _state(check).status in ("done", "failed"), timeout_s=180, what="the check ending")
+            assert worker_b.poll() is None
+    assert_one_report(check)
+    assert check.attempts == 2
+
+
+def test_a_check_that_loses_its_worker_three_times_fails_with_a_sentence(alice, seeded, redis):
+    """Each of three attempts loses its pool process; the check then ends failed with a sentence, the worker lives."""
+    with worker_process(redis_url=redis.url) as worker:
+        check = submit(alice, sphere_stl(8.0), "ball.stl")
+        for attempt in (1, 2, 3):
+            wait_until(lambda: _state(check).status == "running" and check.attempts == attempt, timeout_s=120,
+                       what=f"attempt {attempt} starting")
+            [child] = child_pids(worker.pid)
+            os.kill(child, signal.SIGKILL)  # what the kernel's OOM killer does
+        wait_until(lambda: check_requeue_stale(stale_after_s=STALE_AFTER_S)[1], timeout_s=60,
+                   what="the maintenance job failing the check")
+        after = submit(alice, sphere_stl(3.0), "small-ball.stl")
+        wait_until(lambda: _state(after).status in ("done", "failed"), timeout_s=120, what="the next check ending")
+        assert worker.poll() is None
+    check.refresh_from_db()
+    assert (check.status, check.attempts, check.error_code) == ("failed", 3, "worker_lost")
+    assert check.error == worker_lost_sentence()
+    assert check.error.startswith("The worker was lost three times") and check.report is None
+    assert after.status == "done"

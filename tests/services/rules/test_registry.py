@@ -1,0 +1,45 @@
+"""The rule families together: order, the pipeline's support estimate, pictures, switching off."""
+
+import json
+
+from manifold3d import Manifold
+
+from services import catalogue
+from services.findings import RULES
+from services.rules import registry, run_rules
+
+
+def test_every_family_is_registered_in_run_order():
+    names = [name for name, _ in registry.CHECKS]
+    assert names == ["min_feature", "min_gap", "min_hole", "aspect_ratio", "overhang", "island", "trapped_volume"]
+    assert set(names) <= set(RULES) and set(names) == set(registry.COLLECTORS)
+
+
+def test_run_rules_gives_findings_pictures_and_the_support_estimate(stack_of):
+    """A T on a thin fin: every finding serialises and names a PNG it carries; overhang gives support."""
+    shape = (Manifold.cube((6.0, 3.0, 0.5)) + Manifold.cube((0.1, 2.0, 2.1)).translate((1.0, 0.5, 0.4))
+             + Manifold.cube((1.0, 1.0, 2.0)).translate((4.0, 1.0, 0.4)) + Manifold.cube((3.0, 1.0, 0.5)).translate((3.0, 1.0, 2.4)))
+    part, stack = stack_of(shape)
+    out = run_rules(stack=stack, part=part, printer=catalogue.printer("bay1-lcd-resin"))
+    rules = {f.rule for f in out.findings}
+    assert {"min_feature", "island"} <= rules
+    for f in out.findings:
+        json.dumps(f.to_dict())
+        assert f.picture is None or out.figures[f.picture][:4] == b"\x89PNG"
+    assert out.summary["overhang"]["support_volume_mm3"] > 0
+
+
+def test_a_profile_with_every_rule_switched_off_finds_nothing(stack_of):
+    bay1 = catalogue.printer("bay1-lcd-resin")
+    off = {name: {**limits, "enabled": False} for name, limits in bay1.rules.items()}
+    profile = type(bay1).from_dict({**bay1.to_dict(), "rules": off})
+    part, stack = stack_of(Manifold.cube((0.1, 2.0, 2.0)))
+    out = run_rules(stack=stack, part=part, printer=profile)
+    assert out.findings == () and "overhang" not in out.summary
+
+
+def test_progress_follows_the_shared_pass_and_only_rises(stack_of):
+    part, stack = stack_of(Manifold.cube((2.0, 2.0, 2.0)) + Manifold.cube((0.1, 1.0, 3.0)).translate((0.5, 0.5, 1.9)))
+    seen = []
+    run_rules(stack=stack, part=part, printer=catalogue.printer("bay1-lcd-resin"), progress=seen.append)
+    assert seen == sorted(seen) and seen[-1] == 1.0 and any(0 < f < 0.9 for f in seen)

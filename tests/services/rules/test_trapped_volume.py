@@ -1,0 +1,50 @@
+"""trapped_volume: sealed cavities and cups."""
+
+from manifold3d import Manifold
+
+from services.rules import trapped_volume
+
+LIMITS = {"severity": "blocker", "cup_severity": "caution", "drain_hole_mm": 2.5}
+
+
+def hollow_cube(holes: bool):
+    """Return a 10 mm cube with an 8 mm cavity, optionally with two 3 mm holes through one side."""
+    cube = Manifold.cube((10.0, 10.0, 10.0)) - Manifold.cube((8.0, 8.0, 8.0)).translate((1.0, 1.0, 1.0))
+    if holes:
+        drill = Manifold.cylinder(4.0, 1.5, circular_segments=48).rotate((90.0, 0.0, 0.0))
+        cube -= drill.translate((3.0, 2.0, 2.5)) + drill.translate((7.0, 2.0, 7.5))
+    return cube
+
+
+def test_a_sealed_hollow_cube_traps_its_cavity(stack_of, printer, run_check):
+    """The 8 mm cavity holds 512 mm3 (by construction) and no drain lets it out."""
+    part, stack = stack_of(hollow_cube(holes=False))
+    out = run_check(trapped_volume, part, stack, printer(trapped_volume=LIMITS))
+    (f,) = [f for f in out.findings if f.severity == "blocker"]
+    assert f.count == 1 and abs(f.measured - 512.0) <= 0.02 * 512.0
+    assert "drain hole of 2.5 mm or more" in f.message
+    assert 1.0 <= f.location_mm[2] <= 1.1  # the cavity's end nearest the build plate
+
+
+def test_two_3_mm_holes_let_the_cavity_drain(stack_of, printer, run_check):
+    """With two 3 mm holes in a side wall, the lower one at the cavity's floor, nothing is trapped or cupped."""
+    part, stack = stack_of(hollow_cube(holes=True))
+    assert run_check(trapped_volume, part, stack, printer(trapped_volume=LIMITS)).findings == ()
+
+
+def test_a_box_open_at_the_top_is_a_cup_for_a_vat_printer(stack_of, printer, run_check):
+    """An open-topped box is closed towards the build plate: the vat film seals it at each peel."""
+    box = Manifold.cube((10.0, 10.0, 10.0)) - Manifold.cube((8.0, 8.0, 10.0)).translate((1.0, 1.0, 1.0))
+    part, stack = stack_of(box)
+    (f,) = run_check(trapped_volume, part, stack, printer(trapped_volume=LIMITS)).findings
+    assert f.severity == "caution" and "suction" in f.message and "vent hole of 2.5 mm" in f.message
+    assert abs(f.measured - 64.0) <= 0.02 * 64.0  # its 8 x 8 mm section
+    assert 1.0 <= f.location_mm[2] <= 1.1  # vent near the closed end, by the build plate
+
+
+def test_extrusion_only_notes_a_sealed_cavity(stack_of, printer, run_check):
+    """A material-extrusion profile notes the cavity and asks for no drain hole; cups do not apply."""
+    part, stack = stack_of(hollow_cube(holes=False))
+    profile = printer(process="material_extrusion", trapped_volume={"severity": "note", "cup_severity": "note", "drain_hole_mm": None})
+    (f,) = run_check(trapped_volume, part, stack, profile).findings
+    assert f.severity == "note" and "drain" not in f.message

@@ -1,0 +1,99 @@
+"""Submitting designs: many files at once, parametric parts, errors beside their fields."""
+
+import json
+import re
+from unittest import mock
+
+import pytest
+from django.core.files.uploadedfile import SimpleUploadedFile
+from django.urls import reverse
+
+from tests.webapp.parts import box_stl, finned_plate_stl
+from webapp.checks.models import Check, Design
+
+OPTIONS = {"printer": "bay1-lcd-resin", "material": "standard-resin", "orientation": "+z", "quantities": "1, 5"}
+
+
+def _post(client, url, data):
+    with mock.patch("webapp.checks.tasks.run_check.delay") as delay:
+        return client.post(url, data), delay
+
+
+def test_each_dropped_file_becomes_a_design_and_a_check(alice_client, seeded, django_capture_on_commit_callbacks):
+    """Two files in one upload give two designs and two queued checks, and the list to follow them."""
+    files = [SimpleUploadedFile("a.stl", box_stl()), SimpleUploadedFile("b.stl", finned_plate_stl())]
+    with mock.patch("webapp.checks.tasks.run_check.delay") as delay, django_capture_on_commit_callbacks(execute=True):
+        response = alice_client.post(reverse("upload"), {"file": files, "units": "mm", **OPTIONS})
+    assert response.status_code == 302 and response["Location"] == reverse("designs")
+    assert sorted(Design.objects.values_list("name", flat=True)) == ["a.stl", "b.stl"]
+    assert Check.objects.filter(status="queued").count() == 2 and delay.call_count == 2
+    page = alice_client.get(reverse("designs")).content.decode()
+    assert "2 checks queued" in page and page.count('class="mini-progress"') == 2
+
+
+def test_an_empty_file_among_several_is_named(alice_client, seeded):
+    """An empty file is refused beside the file field with its name; nothing is queued for it."""
+    files = [SimpleUploadedFile("good.stl", box_stl()), SimpleUploadedFile("empty.stl", b"")]
+    response, _ = _post(alice_client, reverse("upload"), {"file": files, "units": "mm", **OPTIONS})
+    assert response.status_code == 400
+    assert "empty" in response.content.decode() and not Check.objects.exists()
+
+
+def test_it_generates_a_lens_and_checks_it_at_its_own_frequency_and_focus(alice_client, seeded):
+    """A zoned lens from the form is stored as a design of that kind, checked at its design frequency and focus."""
+    data = {"part_diameter_mm": "60", "part_focal_length_mm": "72", "part_freq_ghz": "140",
+            "part_min_thickness_mm": "1", "part_flange_width_mm": "0", "part_flange_thickness_mm": "2", **OPTIONS}
+    response, delay = _post(alice_client, reverse("generate", args=["zoned"]), data)
+    assert response.status_code == 302, response.content.decode()[:3000]
+    check = Check.objects.select_related("design").get()
+    assert check.design.kind == "zoned" and check.design.parameters["diameter_mm"] == 60.0
+    assert check.design.name == "zoned-60mm-140GHz.stl" and check.design.units == "mm"
+    assert check.settings["optics"]["freqs_ghz"] == [140.0] and check.settings["optics"]["focal_length_mm"] == 72.0
+
+
+def test_a_refusal_of_the_builder_stands_beside_its_parameter(alice_client, seeded):
+    """A focal length too short for the aperture is explained next to the focal length field."""
+    data = {"part_diameter_mm": "60", "part_focal_length_mm": "10", "part_freq_ghz": "140",
+            "part_min_thickness_mm": "1", "part_flange_width_mm": "0", "part_flange_thickness_mm": "2", **OPTIONS}
+    response, delay = _post(alice_client, reverse("generate", args=["zoned"]), data)
+    page = response.content.decode()
+    assert response.status_code == 400 and not delay.called and not Design.objects.exists()
+    error = re.search(r'<p class="error" id="id_part_focal_length_mm_error">([^<]*)</p>', page)
+    assert error and "f/D of at least 0.5" in error.group(1)
+
+
+@pytest.mark.parametrize("kind", ["plano-convex", "zoned", "multilevel", "graded-index", "spiral", "window"])
+def test_every_kind_has_a_form_from_its_parameters(alice_client, seeded, kind):
+    """The form of a kind has one labelled field per parameter of services.components."""
+    from services.components import component_parameters
+
+    page = alice_client.get(reverse("generate", args=[kind])).content.decode()
+    for spec in component_parameters(kind):
+        assert f'<label for="id_part_{spec.name}">' in page
+
+
+def test_an_unknown_kind_is_not_found(alice_client, seeded):
+    assert alice_client.get(reverse("generate", args=["teapot"])).status_code == 404
+
+
+def test_the_printer_limits_stand_beside_the_choice(alice_client, seeded):
+    """The page carries each printer's key limits, and which materials it takes, for the panel beside the choice."""
+    page = alice_client.get(reverse("upload")).content.decode()
+    facts = json.loads(re.search(r'<script id="catalogue-facts" type="application/json">(.*?)</script>', page, re.S).group(1))
+    bay1 = dict(facts["printer"]["bay1-lcd-resin"])
+    assert bay1["Smallest feature"] == "0.15 mm supported, 0.4 mm free-standing"
+    assert bay1["Build volume"] == "130 × 80 × 160 mm"
+    assert "standard-resin" in facts["compatible"]["bay1-lcd-resin"] and "pla" not in facts["compatible"]["bay1-lcd-resin"]
+    # The default material is one the default printer can print, so the untouched form is valid.
+    selected = re.search(r'<option value="([^"]+)" selected>', page[page.index('id="id_material"'):]).group(1)
+    assert selected in facts["compatible"][re.search(r'<option value="([^"]+)" selected>', page).group(1)]
+
+
+def test_a_field_error_is_tied_to_its_field(alice_client, seeded):
+    """A bad quantity is marked invalid on the input and described by the sentence next to it."""
+    response, _ = _post(alice_client, reverse("upload"), {"file": SimpleUploadedFile("a.stl", box_stl()),
+                                                         "units": "mm", **OPTIONS, "quantities": "one, two"})
+    page = response.content.decode()
+    field = re.search(r'<input[^>]*name="quantities"[^>]*>', page).group(0)
+    assert 'aria-invalid="true"' in field and "id_quantities_error" in field
+    assert 'id="id_quantities_error">Give whole numbers' in page

@@ -1,0 +1,38 @@
+from django import template
+
+from webapp.catalogue.schema import label_of
+
+register = template.Library()
+
+
+@register.filter
+def share_percent(value, digits=1) -> str:
+    """Return a share as '3.4 %'; empty for None."""
+    try:
+        return f"{float(value) * 100:.{int(digits)}f} %"
+    except (TypeError, ValueError):
+        return ""
+
+
+@register.filter
+def path_label(path: str) -> str:
+    return label_of(path)
+
+
+@register.filter
+def value_text(value) -> str:
+    """Return a stored value as a person reads it: lists joined, None as a dash."""
+    if value is None:
+        return "—"
+    if isinstance(value, bool):
+        return "yes" if value else "no"
+    if isinstance(value, float):
+        return f"{value:g}"
+    if isinstance(value, (list, tuple)):
+        return ", ".join(value_text(v) for v in value)
+    return str(value)
+
+
+@register.filter
+def words(value: str) -> str:
+    return str(value or "").replace("_", " ")
