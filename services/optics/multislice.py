@@ -26,7 +26,7 @@ from scipy import fft as sfft
 from services.optics.cells import CellGrid
 from services.optics.effective_medium import effective_permittivity
 
-ABSORBER_WAVELENGTHS = 2.0  # absorbing margin around the window: light leaving the part sideways does not wrap round
+ABSORBER_WAVELENGTHS = 1.0  # absorbing margin around the window: light leaving the part sideways does not wrap round
 SOLID, VOID = 1 - 1e-6, 1e-6  # fill fractions this close to 1 or 0 count as solid or air (pixel-count rounding)
 
 

@@ -75,9 +75,11 @@ class AngularSpectrum:
             raise ValueError("on_axis needs evenly spaced distances and the exact transfer function")
         term = w * np.exp(-2j * np.pi * z[0] * kz)
         factor = np.exp(-2j * np.pi * step * kz)
+        # The terms come sorted by cut-off, longest first, so the ones still in the sum form a prefix.
+        count = len(z_cut) - np.searchsorted(z_cut[::-1], z, side="right")
         out = np.empty(len(z), dtype=complex)
-        for i, zi in enumerate(z):
-            out[i] = term[z_cut > zi].sum()
+        for i in range(len(z)):
+            out[i] = term[:count[i]].sum()
             term *= factor
         return out
 
@@ -97,4 +99,6 @@ class AngularSpectrum:
             # |f| < 1 / (lambda sqrt((2 z / L)^2 + 1))  <=>  z < L/2 sqrt(1 / (lambda f)^2 - 1)
             cut_x = self.padded[1] * self.cell_mm / 2 * np.sqrt(np.maximum(1 / (lam * fx) ** 2 - 1, 0))
             cut_y = self.padded[0] * self.cell_mm / 2 * np.sqrt(np.maximum(1 / (lam * fy) ** 2 - 1, 0))
-        return weights[keep], np.sqrt(arg), np.minimum(cut_x, cut_y)
+        cut = np.minimum(cut_x, cut_y)
+        order = np.argsort(-cut, kind="stable")
+        return weights[keep][order], np.sqrt(arg)[order], cut[order]

@@ -61,10 +61,6 @@ class Collector:
         self._sections: list[tuple[np.ndarray, ...]] = []
         self._top: list[np.ndarray] = []
 
-    def prepare(self, view: RunView) -> None:
-        """Label and measure this run's sections ahead of ``visit``."""
-        view.widths  # noqa: B018
-
     def visit(self, view: RunView) -> None:
         count, _ = view.solid
         if count <= 1:

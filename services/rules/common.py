@@ -85,7 +85,7 @@ def picture(frame, *, layer: int, flat: int, highlight: np.ndarray, title: str, 
     half = int(min(max(half_px, 24), 400))
     r0, r1 = max(r - half, 0), min(r + half + 1, frame.ny)
     c0, c1 = max(c - half, 0), min(c + half + 1, frame.nx)
-    return pictures.layer_crop_png(mask[r0:r1, c0:c1], highlight[r0:r1, c0:c1] & True,
+    return pictures.layer_crop_png(mask[r0:r1, c0:c1], highlight[r0:r1, c0:c1].astype(bool),
                                    pixel_mm=frame.px, title=title)
 
 

@@ -69,12 +69,8 @@ class Collector:
         self._prev_free: np.ndarray | None = None  # solid label -> group id in the previous run, -1 if none
         self._prev_attached: tuple[np.ndarray, np.ndarray] | None = None  # (flat pixels, group id of each)
 
-    def prepare(self, view: RunView) -> None:
-        """Do the work that needs only this run (ahead of ``visit``)."""
-        view.__dict__[RULE] = thin_parts(view, self.n_sup, self.n_uns)
-
     def visit(self, view: RunView) -> None:
-        free_lut, rows, cols, width, depth = view.__dict__.pop(RULE)
+        free_lut, rows, cols, width, depth = thin_parts(view, self.n_sup, self.n_uns)
         self._visit_free(view, free_lut)
         self._visit_attached(view, rows, cols, width, depth)
 

@@ -62,15 +62,10 @@ class Collector:
         self.groups = Groups("min")
         self._prev: tuple[np.ndarray, np.ndarray] | None = None
 
-    def prepare(self, view: RunView) -> None:
-        """Do the work that needs only this run (ahead of ``visit``)."""
-        if self.n_xy is not None:
-            view.__dict__[RULE] = narrow_void(view, self.n_xy, self.hole_px2)
-
     def visit(self, view: RunView) -> None:
         if self.n_xy is None:
             return
-        rows, cols, width, depth = view.__dict__.pop(RULE)
+        rows, cols, width, depth = narrow_void(view, self.n_xy, self.hole_px2)
         if rows.size == 0:
             self._prev = None
             return

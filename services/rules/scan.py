@@ -48,9 +48,6 @@ def _run(stack, part, printer, families: dict[str, Callable], progress=None) -> 
     for index, (first, last, mask) in enumerate(stack.runs()):
         view = RunView(frame, index, first, last, frame.pad_mask(mask), prev, below)
         for collector in active:
-            if hasattr(collector, "prepare"):
-                collector.prepare(view)
-        for collector in active:
             collector.visit(view)
         if frame.bounded is not None:
             frame.bounded.update(view, below)

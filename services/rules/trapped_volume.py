@@ -68,10 +68,6 @@ class Collector:
         self.edges: list[tuple[int, int]] = []
         self._prev: np.ndarray | None = None  # void label -> node id in the previous run, -1 for open air
 
-    def prepare(self, view: RunView) -> None:
-        """Label and measure this run's void ahead of ``visit``."""
-        view.void_area  # noqa: B018
-
     def visit(self, view: RunView) -> None:
         count, labels, outside = view.void
         pockets = np.flatnonzero(~outside)

@@ -47,7 +47,6 @@ def test_the_single_host_shape_checks_an_upload(single_host):
     client.login("designer", PASSWORD)
     fields = client.form_defaults("/designs/new/") | {"units": "mm", "freqs": "140", "quantities": "1",
                                                         "printer": "bay1-lcd-resin", "material": "standard-resin"}
-    print("FIELDS", fields)
     status, url, body = client.upload("/designs/new/", fields, "file", "box.stl", box_stl())
     assert status == 200, (fields, re.findall(rb"(?s)class=\"[^\"]*error[^\"]*\"[^>]*>(.{0,300})", body))
     public_id = re.search(r"/checks/([0-9a-f-]{36})/", url + body.decode()).group(1)

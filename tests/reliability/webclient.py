@@ -12,34 +12,36 @@ from html.parser import HTMLParser
 
 
 class _FormFields(HTMLParser):
-    """Collect the default values of the first POST form's fields (inputs, selected options, textareas)."""
+    """Collect the default values of each POST form's fields (inputs, selected options)."""
 
     def __init__(self) -> None:
         super().__init__()
-        self.fields: dict[str, str] = {}
+        self.forms: list[dict[str, str]] = []
         self._select: str | None = None
-        self._in_form = False
+        self._fields: dict[str, str] | None = None
 
     def handle_starttag(self, tag, attrs):
         a = dict(attrs)
-        if tag == "form" and (a.get("method") or "").lower() == "post" and not self.fields:
-            self._in_form = True
-        elif not self._in_form:
+        fields = self._fields
+        if tag == "form" and (a.get("method") or "").lower() == "post":
+            self._fields = {}
+            self.forms.append(self._fields)
+        elif fields is None:
             return
         elif tag == "input" and a.get("name") and a.get("type") not in ("file", "submit", "checkbox", "radio"):
-            self.fields[a["name"]] = a.get("value") or ""
+            fields[a["name"]] = a.get("value") or ""
         elif tag == "input" and a.get("type") in ("checkbox", "radio") and "checked" in a and a.get("name"):
-            self.fields[a["name"]] = a.get("value") or "on"
+            fields[a["name"]] = a.get("value") or "on"
         elif tag == "select":
             self._select = a.get("name")
-        elif tag == "option" and self._select and (self._select not in self.fields or "selected" in a):
-            self.fields[self._select] = a.get("value") or ""
+        elif tag == "option" and self._select and (self._select not in fields or "selected" in a):
+            fields[self._select] = a.get("value") or ""
 
     def handle_endtag(self, tag):
         if tag == "select":
             self._select = None
         elif tag == "form":
-            self._in_form = False
+            self._fields = None
 
 
 class WebClient:
@@ -66,7 +68,7 @@ class WebClient:
         assert status == 200, (path, status)
         parser = _FormFields()
         parser.feed(body.decode())
-        return parser.fields
+        return max(parser.forms, key=len)  # the page's main form, not the sign-out button's
 
     def login(self, username: str, password: str) -> None:
         fields = self.form_defaults("/login/") | {"username": username, "password": password}

@@ -29,7 +29,7 @@ COST_KEYS = {"machine_rate_per_h", "labour_rate_per_h", "setup_labour_h", "post_
 PINNED_LIMITS = {
     "bay1-lcd-resin": {
         ("min_feature", "supported_mm"): 0.15,   # common practice, no published source
-        ("min_feature", "unsupported_mm"): 0.4,  # Appendix, LCD-masked VPP free-standing pin >= 0.4 mm [R]
+        ("min_feature", "unsupported_mm"): 0.15,  # common practice, no published source (~150 um features)
         ("min_gap", "xy_mm"): 0.30,              # common practice, no published source
         ("min_gap", "z_mm"): 0.5,                # Appendix, 0.5 mm along Z (over-cure) [R]; Xu et al. 2022 [S]
         ("min_hole", "along_z_mm"): 0.5,         # bureau guide A: holes < 0.5 mm may close off [S]

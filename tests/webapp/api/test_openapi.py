@@ -81,7 +81,7 @@ fuzzed = _fuzzed_schema()
 @pytest.mark.slow
 @pytest.mark.usefixtures("seeded", "no_worker")
 @fuzzed.parametrize()
-@settings(max_examples=20, deadline=None,
+@settings(max_examples=12, deadline=None, database=None,
           suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow,
                                  HealthCheck.filter_too_much])
 def test_the_api_keeps_to_its_description_under_fuzzing(case, alice):

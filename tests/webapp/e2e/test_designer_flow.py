@@ -30,6 +30,13 @@ window.addEventListener("DOMContentLoaded", () => {
 });
 """
 
+# A drag-and-drop payload holding one file, as a browser builds it when a file is dropped.
+DROP_FILE = """([name, bytes]) => {
+  const transfer = new DataTransfer();
+  transfer.items.add(new File([new Uint8Array(bytes)], name, {type: "model/stl"}));
+  return transfer;
+}"""
+
 # Load lazy pictures, wait for every picture, and return (source, natural width) of each.
 LOAD_IMAGES = """
 async () => {
@@ -76,8 +83,8 @@ def _follow_to_report(page, progress: list[int], shot: Path | None = None) -> No
 
 
 def test_a_designer_checks_parts_in_the_browser(browser, live_server, alice, seeded, shots):
-    """Upload a part with a 0.1 mm fin, follow the bar to the end through a reload, read the finding with its
-    picture, download the PDF; generate a lens and read its optics."""
+    """Drop a part with a 0.1 mm fin on the upload zone, follow the bar to the end through a reload, read the
+    finding with its picture, download the PDF; generate a lens and read its optics."""
     page = _sign_in(browser, live_server, "alice", "alice-password-1")
     progress: list[int] = []
     page.on("console", lambda msg: msg.text.startswith("progress ") and progress.append(int(msg.text.split()[1])))
@@ -85,7 +92,9 @@ def test_a_designer_checks_parts_in_the_browser(browser, live_server, alice, see
     with broker("filesystem://", settings.FOLDER_BROKER_OPTIONS):  # one producer pool from the first upload on
         page.click("nav >> text=Check a part")
         page.screenshot(path=str(shots / "upload-form.png"), full_page=True)
-        page.set_input_files("#id_file", {"name": "finned.stl", "mimeType": "model/stl", "buffer": finned_plate_stl()})
+        dropped = page.evaluate_handle(DROP_FILE, ["finned.stl", list(finned_plate_stl())])
+        page.dispatch_event("#dropzone", "drop", {"dataTransfer": dropped})
+        assert page.text_content("#file-list").startswith("finned.stl")
         page.fill("#id_freqs", "140")
         page.click("#submit-button")
         page.wait_for_url("**/checks/*/")
