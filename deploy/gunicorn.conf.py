@@ -14,9 +14,9 @@ threads = int(os.environ.get("PHASEWRIGHT_WEB_THREADS", "8"))
 timeout = 60
 graceful_timeout = 30
 keepalive = 5
-# Replace a process now and then, so a slow leak never grows without bound.
-max_requests = 2000
-max_requests_jitter = 200
+# No periodic restarts (max_requests): under load a retiring process keeps its clients' keep-alive
+# connections open unread until graceful_timeout, and those requests hang (seen in bench_load.py).
+max_requests = 0
 # Only the local proxy may say the request came over https (X-Forwarded-Proto).
 forwarded_allow_ips = os.environ.get("PHASEWRIGHT_PROXY_IPS", "127.0.0.1")
 worker_tmp_dir = "/dev/shm" if os.path.isdir("/dev/shm") else None

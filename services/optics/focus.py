@@ -123,20 +123,24 @@ def wavefront_focus_mm(field: np.ndarray, cell_mm: float, axis_index: tuple[int,
     r2, where = np.unique((iy - axis_index[0]) ** 2 + (ix - axis_index[1]) ** 2, return_inverse=True)
     phasor = weight[keep] * np.exp(1j * np.angle(field[keep]))
     rings = np.bincount(where, phasor.real, len(r2)) + 1j * np.bincount(where, phasor.imag, len(r2))
-    radius = np.sqrt(r2) * cell_mm
+    rings_re, rings_im = rings.real.astype(np.float32), rings.imag.astype(np.float32)
+    r2_mm2 = (r2 * cell_mm**2).astype(np.float32)
     total = float(weight[keep].sum())
+    k = np.float32(2 * np.pi / wavelength_mm)
 
     def coherence(curvature: np.ndarray) -> np.ndarray:
-        parts = np.array_split(curvature, max(1, len(curvature) // 64))  # bounds the (d, ring) matrix
-        return np.concatenate([np.abs(np.conj(ideal_lens_phase(radius[None, :], 1.0 / c[:, None], wavelength_mm))
-                                      @ rings) / total for c in parts])
+        d = (1.0 / curvature).astype(np.float32)[:, None]
+        # k (sqrt(r^2 + d^2) - d), rationalised so float32 keeps it to microradians
+        psi = k * r2_mm2[None, :] / (np.sqrt(r2_mm2[None, :] + d * d) + d)
+        cos, sin = np.cos(psi), np.sin(psi)
+        return np.hypot(cos @ rings_re + sin @ rings_im, cos @ rings_im - sin @ rings_re) / total
 
-    # The coherence's main lobe spans a rim phase of about 4 pi: sample it every 2 rad, then the
-    # best interval 32 times finer, and take the vertex of the parabola there.
-    step = 2 * wavelength_mm / (np.pi * max(radius.max(), cell_mm) ** 2)
+    # The main lobe spans a rim phase of about 4 pi and stays above 0.84 within 2 rad of its top,
+    # far above the first side lobe (0.22): sample every 4 rad, then the best interval 16 times finer.
+    step = 4 * wavelength_mm / (np.pi * max(float(np.sqrt(r2.max())) * cell_mm, cell_mm) ** 2)
     coarse = np.linspace(1.0 / hi_mm, 1.0 / lo_mm, max(3, int(np.ceil((1.0 / lo_mm - 1.0 / hi_mm) / step)) + 1))
     i = int(np.argmax(coherence(coarse)))
-    fine = np.linspace(coarse[max(i - 1, 0)], coarse[min(i + 1, len(coarse) - 1)], 65)
+    fine = np.linspace(coarse[max(i - 1, 0)], coarse[min(i + 1, len(coarse) - 1)], 33)
     values = coherence(fine)
     j = int(np.argmax(values))
     return float(1.0 / _parabolic_peak(fine, values, j)), float(values[j] ** 2)

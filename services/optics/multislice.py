@@ -7,9 +7,10 @@ exactly, and between slices the field travels through air with the angular-spect
 screen, ..., half a slice. This is the scalar, forward-only beam-propagation method (Feit &
 Fleck, Appl. Opt. 17, 3990, 1978; from memory). Air is the reference medium because the oblique
 rays of a lens travel in air (above a curved face, beside a zone wall); inside the material the
-beam runs close to the axis, where a phase screen is accurate. So a wave bends at a curved face
-and a thick lens focuses where its profile says, where one thin screen at the top plane would
-add spherical aberration. Loss comes from Im n in every slice; the reflections at the faces are
+beam runs close to the axis, where a phase screen is accurate (a beam diffracts there as it would
+in air, n times too fast: negligible for the wide beams that cross a lens). So a wave bends at a
+curved face and a thick lens focuses where its profile says, where one thin screen at the top
+plane would add spherical aberration. Loss comes from Im n in every slice; the reflections at the faces are
 not in a forward march, and the caller puts them back from the transfer matrices.
 
 Engineering sign (e^{+j omega t}): a forward wave is e^{-j kz z}, evanescent waves decay.
@@ -60,7 +61,9 @@ class Window:
         fine = beam.fine
         self.shape, self.cell_mm, self.sub = fine.shape, fine.cell_mm, beam.sub
         pad = math.ceil(beam.pad_mm / fine.cell_mm)
-        self.padded = tuple(sfft.next_fast_len(n + 2 * pad) for n in fine.shape)
+        # A whole number of cells across the window, so the cells' samples are a plain inverse DFT.
+        self.padded = tuple(beam.sub * sfft.next_fast_len(n // beam.sub + math.ceil(2 * pad / beam.sub))
+                            for n in fine.shape)
         self.offset = tuple((p - n) // 2 for p, n in zip(self.padded, fine.shape))
         self.k0 = np.asarray(k0, dtype=float)
         ky = 2 * np.pi * sfft.fftfreq(self.padded[0], d=self.cell_mm)[:, None]
@@ -70,8 +73,12 @@ class Window:
         # kz of the propagating waves, and the decay rate of the evanescent ones (the rest of the window)
         self.kz = np.where(arg >= 0, root, np.float32(0))
         self.decay = np.where(arg < 0, root, np.float32(0))
-        self.absorber = (_absorber(self.padded[0], self.offset[0], fine.shape[0])[:, None]
-                         * _absorber(self.padded[1], self.offset[1], fine.shape[1])[None, :]).astype(np.float32)
+        absorber = (_absorber(self.padded[0], self.offset[0], fine.shape[0])[:, None]
+                    * _absorber(self.padded[1], self.offset[1], fine.shape[1])[None, :]).astype(np.float32)
+        # The absorber is 1 on the sub-cells: keep only the four strips of the margin around them.
+        (oy, ox), (ny, nx) = self.offset, fine.shape
+        self.margin = [(index, absorber[index]) for index in (
+            np.s_[:oy, :], np.s_[oy + ny:, :], np.s_[oy:oy + ny, :ox], np.s_[oy:oy + ny, ox + nx:])]
         self._kernels: dict[float, np.ndarray] = {}
 
     @property
@@ -93,6 +100,11 @@ class Window:
             self._kernels[key] = h
         return h
 
+    def absorb(self, field: np.ndarray) -> None:
+        """Damp the field in the margin, in place."""
+        for index, mask in self.margin:
+            field[(slice(None), *index)] *= mask
+
     def embed(self, field: np.ndarray) -> np.ndarray:
         """Return the field on the padded window, once per frequency, complex64."""
         big = np.zeros((len(self.k0), *self.padded), dtype=np.complex64)
@@ -103,24 +115,26 @@ class Window:
         """Return the band-limited field at the analysis cells' centres from its padded spectrum.
 
         The field is band-limited to the cells' Nyquist band (which holds every propagating wave
-        when a cell is below lambda/2) and evaluated at the cell centres by a matrix DFT per axis,
-        so sub-cell detail that cannot reach the focus does not alias into the cells.
+        when a cell is below lambda/2), so sub-cell detail that cannot reach the focus does not
+        alias into the cells. Sampled every ``sub`` sub-cells from the first cell's centre, such
+        a field is the inverse DFT of its band times exp(j 2 pi k s0 / P), one cell per sample.
         """
-        (py, px), nf = self.padded, spectrum.shape[0]
         if self.sub == 1:
             return sfft.ifft2(spectrum, workers=-1)[(slice(None), *self.inner)]
-        ay, keep_y = self._samples(0)
-        ax, keep_x = self._samples(1)
-        band = spectrum[:, keep_y][:, :, keep_x].astype(np.complex128)
-        return (ay[None] @ band @ ax.T[None]).reshape(nf, len(ay), len(ax)) / (py * px)
-
-    def _samples(self, axis: int) -> tuple[np.ndarray, np.ndarray]:
-        p, n = self.padded[axis], self.shape[axis] // self.sub
-        k = np.rint(sfft.fftfreq(p) * p)
-        keep = np.abs(k) < p / (2 * self.sub)
-        # Cell c's centre is the middle of its sub-cells: sub-cell c sub + (sub - 1) / 2.
-        at = self.offset[axis] + np.arange(n) * self.sub + (self.sub - 1) / 2
-        return np.exp(2j * np.pi * np.outer(at, k[keep]) / p), keep
+        band = spectrum.astype(np.complex128)
+        for axis, (p, o) in enumerate(zip(self.padded, self.offset)):
+            k = np.rint(sfft.fftfreq(p) * p)
+            keep = np.flatnonzero(np.abs(k) < p / (2 * self.sub))
+            # Cell 0's centre is the middle of its sub-cells: sub-cell (sub - 1) / 2 of the window.
+            shift = np.exp(2j * np.pi * k[keep] * (o + (self.sub - 1) / 2) / p)
+            folded = np.zeros(band.shape[:axis + 1] + (p // self.sub,) + band.shape[axis + 2:], dtype=complex)
+            index = (slice(None),) * (axis + 1)
+            folded[index + (k[keep].astype(int) % (p // self.sub),)] = (
+                np.take(band, keep, axis=axis + 1) * shift.reshape((-1,) + (1,) * (1 - axis)))
+            band = folded
+        cells = sfft.ifft2(band, workers=-1) / self.sub**2
+        ny, nx = (n // self.sub for n in self.shape)
+        return cells[:, :ny, :nx]
 
 
 def _absorber(padded: int, offset: int, n: int) -> np.ndarray:
@@ -170,7 +184,8 @@ class March:
     def _step(self, layers: int) -> None:
         """Travel up to the slice's middle, take its delay, and leave the second half pending."""
         dz = layers * self.layer_mm
-        self._travel(self.pending_mm + dz / 2, keep=layers == self.per_slice)
+        full = layers == self.per_slice
+        self._travel(self.pending_mm + dz / 2, keep=full and self.pending_mm in (0.0, dz / 2))
         self.field[(slice(None), *self.window.inner)] *= self.sum.screen(self.window.k0, self.eps, self.model,
                                                                          self.layer_mm)
         self.pending_mm = dz / 2
@@ -182,7 +197,7 @@ class March:
         spectrum = sfft.fft2(self.field, workers=-1, overwrite_x=True)
         spectrum *= self.window.kernel(distance_mm, keep)
         self.field = sfft.ifft2(spectrum, workers=-1, overwrite_x=True)
-        self.field *= self.window.absorber
+        self.window.absorb(self.field)
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -205,18 +220,19 @@ class _SliceSum:
 
     def __init__(self, shape: tuple[int, int]) -> None:
         self.solid = np.zeros(shape, dtype=np.int32)
+        self.layers = 0
         self.parts: list[tuple[_Parts, int]] = []
 
     def add(self, parts: _Parts, layers: int) -> None:
         self.solid += parts.solid * np.int32(layers)
+        self.layers += layers
         if len(parts.index):
             self.parts.append((parts, layers))
 
     def screen(self, k0: np.ndarray, eps: np.ndarray, model: str, layer_mm: float) -> np.ndarray:
         """Return exp(-j k0 sum (n_eff - 1) d) over the slice's layers, (nf, ny, nx) complex64."""
         n = np.sqrt(eps + 0j)
-        most = int(self.solid.max())
-        table = np.exp(-1j * k0[:, None] * (n - 1)[:, None] * (np.arange(most + 1) * layer_mm)[None, :])
+        table = np.exp(-1j * k0[:, None] * (n - 1)[:, None] * (np.arange(self.layers + 1) * layer_mm)[None, :])
         out = table.astype(np.complex64)[:, self.solid.ravel()]
         if self.parts:
             index = np.concatenate([p.index for p, _ in self.parts])

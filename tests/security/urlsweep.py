@@ -22,6 +22,7 @@ class Route:
     route: str
     name: str | None
     regex: bool
+    module: str = ""
 
     @property
     def is_admin(self) -> bool:
@@ -41,7 +42,7 @@ def routes() -> list[Route]:
             if isinstance(p, URLResolver):
                 walk(p.url_patterns, prefix + part, is_regex)
             elif isinstance(p, URLPattern):
-                found.append(Route(prefix + part, p.name, is_regex))
+                found.append(Route(prefix + part, p.name, is_regex, getattr(p.callback, "__module__", "") or ""))
 
     walk(get_resolver().url_patterns, "", False)
     return found

@@ -35,11 +35,18 @@ def broker(url: str, transport_options: dict):
 
 
 def _forget_connections() -> None:
-    """Drop the pools that cache connections (and the transport) of the previous broker."""
+    """Drop the pools that cache connections (and the transport) of the previous broker.
+
+    kombu also keeps producer pools in a process-wide registry keyed by the connection's URL: left
+    there, the next context on the same URL would pick up the pool closed here.
+    """
+    from kombu import pools
+
     if app._pool is not None:
         app._pool.force_close_all()
     app._pool = None
     app.amqp._producer_pool = None
+    pools.reset()
 
 
 @contextlib.contextmanager

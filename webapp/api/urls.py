@@ -15,5 +15,5 @@ def api_index(request):
 urlpatterns = [
     path("", api_index, name="api_index"),
     path("", api.urls),
-    re_path(r"^.*$", api_not_found),
+    re_path(r"^[\s\S]*$", api_not_found),  # any character, line breaks too (a "." would stop at one)
 ]

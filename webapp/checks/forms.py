@@ -114,7 +114,7 @@ class CheckOptionsForm(forms.Form):
 class UploadForm(CheckOptionsForm):
     file = MultipleFileField(label="Mesh files", help_text="STL, 3MF, OBJ or PLY; one or many, each becomes a design "
                                                            "and a check; the format is read from the bytes")
-    units = forms.ChoiceField(choices=[("", "not stated (mm, flagged if implausible)")] + [(u, u) for u in UNITS],
+    units = forms.ChoiceField(choices=[("", "not stated (assume mm)")] + [(u, u) for u in UNITS],
                               required=False, help_text="for STL, OBJ and PLY, which carry no units; 3MF states its own")
 
     field_order = ["file", "units", "printer", "material"]

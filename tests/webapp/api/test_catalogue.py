@@ -96,3 +96,9 @@ def test_only_lab_managers_change_the_catalogue(as_alice, as_charlie, as_bob):
             assert response.status_code == 403 and response.json()["code"] == "forbidden"
     assert as_bob.get("printers/bay1-lcd-resin").json()["version"] == 1
     assert not Printer.objects.filter(slug="bay9").exists()
+
+
+def test_an_address_with_a_line_break_is_a_json_404_too(as_alice):
+    """Even an address holding an encoded line break gets the API's JSON 404, not the site's page."""
+    response = as_alice.get("checks/x%0Ay/report")
+    assert response.status_code == 404 and response.json()["code"] == "not_found"

@@ -80,9 +80,12 @@ def test_the_printer_limits_stand_beside_the_choice(alice_client, seeded):
     """The page carries each printer's key limits, and which materials it takes, for the panel beside the choice."""
     page = alice_client.get(reverse("upload")).content.decode()
     facts = json.loads(re.search(r'<script id="catalogue-facts" type="application/json">(.*?)</script>', page, re.S).group(1))
+    from services import catalogue
+
     bay1 = dict(facts["printer"]["bay1-lcd-resin"])
-    assert bay1["Smallest feature"] == "0.15 mm supported, 0.4 mm free-standing"
-    assert bay1["Build volume"] == "130 × 80 × 160 mm"
+    limits = {p.slug: p for p in catalogue.printers()}["bay1-lcd-resin"].rules["min_feature"]
+    assert bay1["Smallest feature"] == f"{limits['supported_mm']:g} mm supported, {limits['unsupported_mm']:g} mm free-standing"
+    assert bay1["Build volume"] == "130 × 80 × 160 mm"  # the demo scenario's Bay 1
     assert "standard-resin" in facts["compatible"]["bay1-lcd-resin"] and "pla" not in facts["compatible"]["bay1-lcd-resin"]
     # The default material is one the default printer can print, so the untouched form is valid.
     selected = re.search(r'<option value="([^"]+)" selected>', page[page.index('id="id_material"'):]).group(1)
@@ -97,3 +100,18 @@ def test_a_field_error_is_tied_to_its_field(alice_client, seeded):
     field = re.search(r'<input[^>]*name="quantities"[^>]*>', page).group(0)
     assert 'aria-invalid="true"' in field and "id_quantities_error" in field
     assert 'id="id_quantities_error">Give whole numbers' in page
+
+
+def test_changed_parameters_make_a_new_revision(alice_client, seeded):
+    """The form opened from a generated design starts from its parameters and saves revision 2 of it."""
+    data = {"part_diameter_mm": "60", "part_focal_length_mm": "72", "part_freq_ghz": "140",
+            "part_min_thickness_mm": "1", "part_flange_width_mm": "0", "part_flange_thickness_mm": "2", **OPTIONS}
+    _post(alice_client, reverse("generate", args=["zoned"]), data)
+    first = Design.objects.get()
+    page = alice_client.get(reverse("generate", args=["zoned"]), {"revision_of": first.public_id}).content.decode()
+    assert f"New revision of {first.name}" in page and 'name="part_focal_length_mm" value="72.0"' in page
+    response, _ = _post(alice_client, reverse("generate", args=["zoned"]),
+                        {**data, "part_focal_length_mm": "80", "note": "longer focus", "revision_of": first.public_id})
+    second = Design.objects.exclude(pk=first.pk).get()
+    assert response.status_code == 302 and second.family == first.family and second.revision == 2
+    assert second.parameters["focal_length_mm"] == 80.0 and second.note == "longer focus"

@@ -1,0 +1,109 @@
+"""The split-step march through the part: slab transmission, refraction at a tilted face, sub-cells."""
+
+import numpy as np
+import pytest
+from scipy import fft as sfft
+
+from services.layers import LayerStack, build_layer_stack
+from services.optics.cells import CellGrid, cell_runs
+from services.optics.materials import rf_values, wavelength_mm
+from services.optics.multislice import Beam, Window
+from services.optics.transfer import slab_airy
+from services.optics.transmission import cell_sparams
+from tests.services.optics.helpers import box, material, part_from
+
+FREQS = np.array([75.0, 90.0, 110.0])
+# Airy / Fabry-Perot formula (Born & Wolf 7.6), computed in shared/references/optics.md section 2.3 [C]
+SLAB_T = np.array([0.750801, 0.866972, 0.678039])
+
+
+def _beam(grid: CellGrid, sub: int, half_mm: tuple[float, float], freq_max_ghz: float, n: float) -> Beam:
+    """A flat-topped beam, +-half_mm (x, y) about the axis, with soft (super-Gaussian) edges on the sub-cells.
+
+    Soft edges, because a hard edge's Fresnel ripple falls off only as 1 / distance.
+    """
+    fine = grid.subdivided(sub)
+    field = np.exp(-((fine.x_mm[None, :] / half_mm[0]) ** 8 + (fine.y_mm[:, None] / half_mm[1]) ** 8))
+    lam = float(wavelength_mm(freq_max_ghz))
+    return Beam(field.astype(complex), grid, sub, lam / (3 * n), lam)
+
+
+@pytest.mark.parametrize("sub", [1, 3])
+def test_a_slab_passes_its_airy_transmission_to_the_exit_field(sub):
+    """Through a 2 mm slab (2.8 / 0.02) the exit field is the beam times the Airy t: |t|^2 = 0.750801, 0.866972,
+    0.678039 (Born & Wolf 7.6; optics.md 2.3). The beam is a Gaussian of w = 8 mm: over 2 mm it keeps its size
+    at the centre and gains the Gouy phase atan(z / z_c), z_c = pi w^2 / lambda (Goldsmith 1998 ch. 2), in air,
+    the march's reference medium."""
+    part = part_from(box(56.0, 56.0, 2.0), "slab")
+    stack = build_layer_stack(part, pixel_mm=0.2, layer_height_mm=0.1)
+    grid = CellGrid.around(axis_mm=(0.0, 0.0), half_extent_mm=(26.0, 26.0), cell_mm=0.6)
+    fine = grid.subdivided(sub)
+    lam = float(wavelength_mm(FREQS.max()))
+    beam = Beam(np.exp(-(fine.radius_mm() / 8.0) ** 2) + 0j, grid, sub, lam / (3 * np.sqrt(2.8)), lam)
+    sp = cell_sparams(stack, grid, rf_values(material(2.8, 0.02), FREQS), beam=beam)["nominal"]
+    centre = grid.radius_mm() < 2.0
+    ratio = sp.exit_field[:, centre] / np.exp(-(grid.radius_mm()[centre] / 8.0) ** 2)
+    t, _ = slab_airy(2.8, 0.02, 2.0, FREQS)
+    gouy = np.arctan(2.0 / (np.pi * 8.0**2 / wavelength_mm(FREQS)))
+    assert np.abs(ratio) ** 2 == pytest.approx(np.broadcast_to(SLAB_T[:, None], ratio.shape), abs=2e-3)
+    assert ratio == pytest.approx(np.broadcast_to((t * np.exp(1j * gouy))[:, None], ratio.shape), abs=2e-3)
+    assert np.all(np.abs(sp.exit_field[:, 0, 0]) < 1e-3)  # the beam has not reached the window's corner
+
+
+def _wedge(angle_deg: float, n: float) -> LayerStack:
+    """A prism across x: 1 mm base, top rising at angle_deg over |x| < 12 mm, 24 mm deep in y."""
+    px, layer = 0.1, 0.05
+    nx, ny = 320, 240
+    x = (np.arange(nx) - nx / 2 + 0.5) * px
+    top = 1.0 + (np.clip(x, -12, 12) + 12) * np.tan(np.radians(angle_deg))
+    top[np.abs(x) > 14] = 0.0
+    masks = [np.broadcast_to(top[None, :] > (k + 0.5) * layer, (ny, nx)) for k in range(int(np.ceil(top.max() / layer)))]
+    return LayerStack.from_masks(masks, pixel_mm=px, layer_height_mm=layer, origin_mm=(-nx / 2 * px, -ny / 2 * px, 0.0))
+
+
+def test_a_wedge_refracts_by_snells_law_not_by_the_thin_element_rule():
+    """A wave leaving a 20 degree face of n = 1.6736 turns by 14.918 deg (Snell, Born & Wolf 1.5.1), where a thin
+    phase screen turns it by asin((n - 1) tan 20) = 14.192 deg (computed from the two formulas)."""
+    n = 1.6736
+    stack = _wedge(20.0, n)
+    grid = CellGrid.around(axis_mm=(0.0, 0.0), half_extent_mm=(15.8, 11.8), cell_mm=0.5)
+    sp = cell_sparams(stack, grid, rf_values(material(n * n, 0.0), [140.0]),
+                      beam=_beam(grid, 1, (11.0, 8.0), 140.0, n))["nominal"]
+    row = sp.exit_field[0, grid.axis_index[0]]
+    near = (grid.x_mm > -4) & (grid.x_mm < 2)  # above the face, far from the beam's and the wedge's edges
+    slope = np.polyfit(grid.x_mm[near], np.unwrap(np.angle(row[near])), 1)[0]
+    turned = np.degrees(np.arcsin(-slope * float(wavelength_mm(140.0)) / (2 * np.pi)))  # e^{-j kx x}
+    snell = np.degrees(np.arcsin(n * np.sin(np.radians(20.0)))) - 20.0
+    assert snell == pytest.approx(14.918, abs=1e-3)
+    assert turned == pytest.approx(snell, abs=0.1)
+    assert abs(turned - np.degrees(np.arcsin((n - 1) * np.tan(np.radians(20.0))))) > 0.5
+
+
+def test_sub_cells_leave_the_cells_exactly_as_they_were():
+    """Counting pixels on sub-cells and summing them gives the cells' fills and edges bit for bit."""
+    part = part_from(box(7.3, 5.1, 0.6).translate((0.37, -0.21, 0.0)), "block")
+    stack = build_layer_stack(part, pixel_mm=0.05, layer_height_mm=0.1)
+    grid = CellGrid.around(axis_mm=(0.13, 0.02), half_extent_mm=(4.5, 3.5), cell_mm=0.45)
+    for plain, fine in zip(cell_runs(stack, grid, with_edges=True), cell_runs(stack, grid, with_edges=True, sub=3)):
+        assert np.array_equal(plain.fill, fine.fill) and np.array_equal(plain.edge_mm, fine.edge_mm)
+        assert fine.fine_fill.shape == (grid.shape[0] * 3, grid.shape[1] * 3)
+        summed = fine.fine_fill.reshape(grid.shape[0], 3, grid.shape[1], 3).mean(axis=(1, 3))
+        assert summed == pytest.approx(fine.fill, abs=1e-12)
+
+
+@pytest.mark.parametrize("sub", [2, 3])
+def test_the_cells_sample_the_band_limited_field_at_their_centres(sub):
+    """A propagating plane wave on the sub-cells comes back exactly at the cell centres (sampling theorem)."""
+    grid = CellGrid.around(axis_mm=(0.0, 0.0), half_extent_mm=(6.0, 5.0), cell_mm=0.5)
+    beam = Beam(np.zeros(grid.subdivided(sub).shape), grid, sub, 0.3, 1.0)
+    window = Window(beam, np.array([2 * np.pi / 2.0]))
+    py, px = window.padded
+    fx, fy = 7 / (px * window.cell_mm), -4 / (py * window.cell_mm)  # on the window's frequency grid
+    yy, xx = np.meshgrid(np.arange(py) * window.cell_mm, np.arange(px) * window.cell_mm, indexing="ij")
+    wave = np.exp(2j * np.pi * (fx * xx + fy * yy))[None]
+    cells = window.cells(sfft.fft2(wave))
+    # cell (r, c) centre sits (sub - 1) / 2 sub-cells past sub-cell (r sub, c sub) of the inner window
+    at_y = (window.offset[0] + np.arange(grid.shape[0]) * sub + (sub - 1) / 2) * window.cell_mm
+    at_x = (window.offset[1] + np.arange(grid.shape[1]) * sub + (sub - 1) / 2) * window.cell_mm
+    expected = np.exp(2j * np.pi * (fx * at_x[None, :] + fy * at_y[:, None]))
+    assert cells[0] == pytest.approx(expected, abs=1e-9)
