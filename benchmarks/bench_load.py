@@ -170,10 +170,13 @@ def _run(port: int, run_dir: Path, db_name: str, args) -> dict:
     warm = [_submit(client, f"box-{i}.stl", box_stl(10 + i, 8, 3)) for i in range(3)]
     _wait(client, warm, 300)
     paths = [p for i in warm for p in (f"/checks/{i}/", f"/checks/{i}/status.json")]
+    # The machine's load average before each phase: other work on the same cores shows up in the numbers.
     results = {"clients": args.clients, "seconds": args.seconds, "cores": os.cpu_count(),
+               "loadavg_before_idle": os.getloadavg()[0],
                "idle": load(port, paths, cookie, args.clients, args.seconds)}
     reference = [_submit(client, name, (PARTS / name).read_bytes()) for name in REFERENCE]
     time.sleep(3)  # both workers have started a check
+    results["loadavg_before_saturated"] = os.getloadavg()[0]
     results["saturated"] = load(port, paths, cookie, args.clients, args.seconds)
     states = _wait(client, reference, 1800)
     results["reference_checks"] = REFERENCE

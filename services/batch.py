@@ -125,7 +125,11 @@ class Client:
         self.stop, self.clock = stop or threading.Event(), clock
 
     def call(self, method: str, path: str, *, body: bytes | None = None, content_type: str | None = None) -> dict:
-        """Make one API call and return its JSON; raise ApiError for a 4xx or when retries run out."""
+        """Make one API call and return its JSON; raise ApiError for a 4xx or when retries run out.
+
+        Sending a POST again after a lost answer is safe: the server returns the same design for the
+        same bytes and the same check for the same request.
+        """
         headers = {"Authorization": f"Bearer {self.token}", "Accept": "application/json"}
         if content_type:
             headers["Content-Type"] = content_type
@@ -401,6 +405,9 @@ def _preflight(client: Client, opts: BatchOptions) -> None:
     """Test the token, printer and material once, rather than failing every file the same way."""
     try:
         client.call("GET", "me")
+    except ValueError:
+        raise UnusableInput("bad_server", f"{client.server} did not answer like a Phasewright site; "
+                            "check the address given with --server.") from None
     except ApiError as exc:
         if exc.status == 401:
             raise UnusableInput("bad_token", f"{client.server} refused the token; make a new one on your account "

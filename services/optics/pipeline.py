@@ -73,9 +73,9 @@ def optics_report(*, part: Part, printed: LayerStack, material: Material, printe
     designed = build_layer_stack(part, pixel_mm=dgrid.pixel_mm, layer_height_mm=dgrid.layer_height_mm,
                                  progress=lambda f: tick(0.25 * f))
     illum = illumination_for(edge_taper_db=settings.edge_taper_db, beam_waist_mm=settings.beam_waist_mm,
-                             rim_radius_mm=grids.rim_radius_mm(part), grid=grid, aperture=cell_footprint(designed, grid))
-    sub = grids.field_subdivision(grid, printer.pixel_mm, float(lam.min()), period[0] if period else None)
-    beam = _beam(illum, designed, grid, sub, rf) if settings.focal_length_mm is not None else None
+                             rim_radius_mm=grids.rim_radius_mm(part), grid=grid,
+                             aperture=cell_footprint(designed, grid))
+    beam = _beam(illum, designed, grid, printer, rf, period) if settings.focal_length_mm is not None else None
     sp_d = cell_sparams(designed, grid, rf, beam=beam, progress=lambda f: tick(0.25 + 0.2 * f))["nominal"]
     variants = _tolerance_variants(printer, printed)
     sp_p = cell_sparams(printed, grid, rf, variants=variants, beam=beam, progress=lambda f: tick(0.45 + 0.25 * f))
@@ -86,7 +86,8 @@ def optics_report(*, part: Part, printed: LayerStack, material: Material, printe
     err = checks.phase_error(sp_p["nominal"].s21, sp_d.s21, illum.weights)
     findings = _findings(err, rf, period, settings)
     section = _section(rf, freq_note, models, design_model, illum, grid, dgrid, err, printer, settings)
-    section["analysis"]["field_cell_mm"] = grid.cell_mm / sub if beam is not None else None
+    section["analysis"]["multislice"] = None if beam is None else {
+        "sub_cell_mm": beam.fine.cell_mm, "longest_slice_mm": beam.slice_mm, "absorbing_margin_mm": beam.pad_mm}
     section["analysis"]["lattice_period_mm"] = None if period is None else {"value": period[0], "how": period[1]}
     result = OpticsResult(section, findings, _figures(rf, models["nominal"], design_model, illum, grid),
                           touchstone_s2p(rf.freqs_ghz, *_weighted_s(models["nominal"]), name=part.name))
@@ -102,10 +103,12 @@ def _frequencies(settings: OpticsSettings, material: Material) -> tuple[tuple[fl
                    + " GHz around the centre of the material's RF table.")
 
 
-def _beam(illum: Illumination, designed: LayerStack, grid: CellGrid, sub: int, rf: RFValues) -> Beam:
+def _beam(illum: Illumination, designed: LayerStack, grid: CellGrid, printer: PrinterProfile, rf: RFValues,
+          period: tuple[float, str] | None) -> Beam:
     """Return the illumination on the part's bottom face, on sub-cells, cut to the clear aperture."""
-    fine = grid.subdivided(sub)
     lam = wavelength_mm(rf.freqs_ghz)
+    sub = grids.field_subdivision(grid, printer.pixel_mm, float(lam.min()), period[0] if period else None)
+    fine = grid.subdivided(sub)
     return Beam(illum.amplitude_on(fine) * cell_footprint(designed, fine), grid, sub,
                 grids.slice_mm(float(lam.min()), grids.max_index(rf.eps_r)), ABSORBER_WAVELENGTHS * float(lam.max()))
 

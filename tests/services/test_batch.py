@@ -373,3 +373,11 @@ def test_files_are_named_relative_to_the_folder(folder):
     rows, _ = run_batch(folder, _opts(recursive=True), client=_client(FakeApi()), stream=io.StringIO(), tty=False)
     assert "sub/d-blocker.3mf" in [r.file for r in rows]
     assert not any(Path(r.file).is_absolute() for r in rows)
+
+
+def test_a_server_that_is_not_phasewright_is_named(tmp_path):
+    """An address that answers HTML instead of the API stops the run with a sentence naming it."""
+    (tmp_path / "a.stl").write_bytes(b"good")
+    client = Client(SERVER, "pw_fake", send=lambda *a: (200, {"Content-Type": "text/html"}, b"<html>hello</html>"))
+    with pytest.raises(UnusableInput, match="did not answer like a Phasewright site"):
+        run_batch(tmp_path, _opts(), client=client, stream=io.StringIO())

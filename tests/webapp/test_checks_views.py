@@ -111,3 +111,13 @@ def test_it_refuses_a_filament_on_a_resin_printer(alice_client, seeded):
     response, delay = _upload(alice_client, material="pla")
     assert response.status_code == 400 and "not made for vat photopolymerisation" in response.content.decode()
     assert not delay.called
+
+
+def test_a_check_cancelled_while_running_stays_cancelled(alice_check):
+    """A worker that finishes or fails after the user cancelled does not overwrite the cancellation."""
+    from webapp.checks.models import Check
+
+    Check.objects.filter(pk=alice_check.pk).update(status=Check.CANCELLED)
+    services.check_fail(check_id=alice_check.pk, code="x", message="y")
+    alice_check.refresh_from_db()
+    assert alice_check.status == Check.CANCELLED

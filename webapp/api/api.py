@@ -22,7 +22,7 @@ class PhasewrightAPI(NinjaAPI):
 
 # No interactive docs page: it would load its scripts from a third-party host.
 api = PhasewrightAPI(title="Phasewright API", version="1", description=DESCRIPTION, urls_namespace="api",
-               auth=[TokenAuth(), SessionAuth()], docs_url=None)
+                     auth=[TokenAuth(), SessionAuth()], docs_url=None)
 install_error_handlers(api)
 api.add_router("", designs.router)
 api.add_router("", checks.router)

@@ -98,7 +98,7 @@ def check_claim(*, check_id: int) -> bool:
 
 
 def check_fail(*, check_id: int, code: str, message: str) -> None:
-    Check.objects.filter(pk=check_id).exclude(status=Check.DONE).update(
+    Check.objects.filter(pk=check_id).exclude(status__in=(Check.DONE, Check.CANCELLED)).update(
         status=Check.FAILED, error_code=code, error=message, finished_at=timezone.now(), heartbeat_at=timezone.now())
 
 
@@ -162,7 +162,8 @@ def report_store(*, check: Check, report) -> None:
             default_storage.delete(path)
         default_storage.save(path, ContentFile(report.touchstone.encode()))
     with transaction.atomic():
-        Check.objects.filter(pk=check.pk).update(
+        # A check cancelled while it ran stays cancelled: the user no longer wants this report.
+        Check.objects.filter(pk=check.pk).exclude(status=Check.CANCELLED).update(
             status=Check.DONE, stage="done", progress=1.0, report=report.to_dict(), verdict=report.verdict,
             finished_at=timezone.now(), heartbeat_at=timezone.now(), error="", error_code="")
 

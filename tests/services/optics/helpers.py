@@ -100,3 +100,36 @@ def zoned_lens(radius_mm: float, n: float, focal_mm: float, wavelength_mm: float
     """Return a zoned lens meshed with manifold3d (zones up, flat back on the plate)."""
     r, top = zoned_profile(radius_mm, n, focal_mm, wavelength_mm, base_mm)
     return part_from(revolve(r, top, segments), "zoned lens")
+
+
+def designed_focus(part: Part, mat: Material, freqs_ghz, focal_mm: float, *, pixel_mm: float, layer_mm: float,
+                   edge_taper_db: float | None = 10.0, beam_waist_mm: float | None = None,
+                   period_mm: float | None = None) -> list:
+    """Return the thick-model focus of a part rasterised finely (as designed), one FocusMetrics per frequency.
+
+    The same steps as the optics section's as-designed model (analysis cells, sub-cells, slices,
+    illumination on the bottom face), without the printed model and its tolerance variants.
+    """
+    from services.layers import build_layer_stack
+    from services.optics import grids
+    from services.optics.cells import cell_footprint
+    from services.optics.evaluate import focus_metrics
+    from services.optics.illumination import illumination_for
+    from services.optics.materials import rf_values, wavelength_mm
+    from services.optics.multislice import ABSORBER_WAVELENGTHS, Beam
+    from services.optics.transmission import cell_sparams
+
+    rf = rf_values(mat, freqs_ghz)
+    lam = wavelength_mm(rf.freqs_ghz)
+    grid = grids.analysis_grid(part, pixel_mm, float(lam.min()), period_mm)
+    stack = build_layer_stack(part, pixel_mm=pixel_mm, layer_height_mm=layer_mm)
+    illum = illumination_for(edge_taper_db=edge_taper_db, beam_waist_mm=beam_waist_mm,
+                             rim_radius_mm=grids.rim_radius_mm(part), grid=grid, aperture=cell_footprint(stack, grid))
+    sub = grids.field_subdivision(grid, pixel_mm, float(lam.min()), period_mm)
+    fine = grid.subdivided(sub)
+    beam = Beam(illum.amplitude_on(fine) * cell_footprint(stack, fine), grid, sub,
+                grids.slice_mm(float(lam.min()), grids.max_index(rf.eps_r)), ABSORBER_WAVELENGTHS * float(lam.max()))
+    sp = cell_sparams(stack, grid, rf, beam=beam)["nominal"]
+    offset = sp.top_mm - float(part.bounds_mm[1][2])
+    return [focus_metrics(sp.exit_field[i], illum, wavelength_mm=float(lam[i]), intended_mm=focal_mm,
+                          exit_offset_mm=offset, axis_index=grid.axis_index) for i in range(len(lam))]

@@ -6,7 +6,9 @@ import pytest
 
 from services.layers import build_layer_stack
 from services.optics.cells import CellGrid
-from services.optics.focus import best_focus_mm, encircled_power, ideal_lens_phase, spot_at
+from services.optics.evaluate import focus_metrics
+from services.optics.focus import best_focus_mm, encircled_power, ideal_lens_phase, spot_at, wavefront_focus_mm
+from services.optics.illumination import illumination_for
 from services.optics.materials import rf_values
 from services.optics.propagate import AngularSpectrum
 from services.optics.transmission import cell_sparams
@@ -51,6 +53,39 @@ def test_low_fresnel_number_moves_the_peak_toward_the_lens():
     grid, _, asm = _ideal_lens()
     best, _, _ = best_focus_mm(asm, grid.axis_index, 0.1 * F, 2 * F)
     assert 0.8 * F < best < 0.97 * F
+
+
+def test_the_wavefront_focus_is_the_spheres_centre_even_where_the_peak_is_not():
+    """At Fresnel number 3 the sphere's centre is F exactly, while the intensity peaks short of it (Li & Wolf 1981);
+    wrapping the phase into zones (a zone plate) leaves the fit unchanged, as exp(j 2 pi) = 1."""
+    grid, field, asm = _ideal_lens()
+    best, _, _ = best_focus_mm(asm, grid.axis_index, 0.1 * F, 2 * F)
+    focus, coherence = wavefront_focus_mm(field, grid.cell_mm, grid.axis_index, LAM, 0.1 * F, 2 * F)
+    assert focus == pytest.approx(F, rel=1e-4) and coherence == pytest.approx(1.0, abs=1e-3)
+    assert best < 0.97 * focus
+    wrapped = np.abs(field) * np.exp(1j * np.mod(np.angle(field), 2 * np.pi))
+    again, _ = wavefront_focus_mm(wrapped, grid.cell_mm, grid.axis_index, LAM, 0.1 * F, 2 * F)
+    assert again == pytest.approx(F, rel=1e-4)
+
+
+@pytest.mark.parametrize(("focal", "aberration_rad", "expected"), [
+    (300.0, 0.0, 1.0), (60.0, 0.0, 1.0),
+    # W = a (rho^4 - rho^2), spherical balanced by defocus: sigma = a / (6 sqrt 5), S = exp(-sigma^2) (Marechal,
+    # Born & Wolf 9.3; the rms of rho^4 - rho^2 over a uniform disc is 1 / (6 sqrt 5), computed from Zernike Z40)
+    (300.0, 3.0, 0.95123), (60.0, 3.0, 0.95123),
+])
+def test_strehl_is_one_for_a_perfect_wave_and_marechal_for_an_aberrated_one(focal, aberration_rad, expected):
+    """The reference converges on the wavefront focus, so an aberration-free field reads 1 at Fresnel number 3 and
+    15 alike; primary spherical aberration of 0.22 rad rms reads the Marechal value within 0.01."""
+    grid = CellGrid.around(axis_mm=(0.0, 0.0), half_extent_mm=(D / 2 + 1, D / 2 + 1), cell_mm=0.25)
+    r = grid.radius_mm()
+    lit = illumination_for(edge_taper_db=None, beam_waist_mm=1e6, rim_radius_mm=D / 2, grid=grid, aperture=r <= D / 2)
+    rho2 = (r / (D / 2)) ** 2
+    aberration = np.exp(1j * aberration_rad * (rho2**2 - rho2))
+    field = lit.amplitude * lit.aperture * ideal_lens_phase(r, focal, LAM) * aberration
+    m = focus_metrics(field, lit, wavelength_mm=LAM, intended_mm=focal, exit_offset_mm=0.0, axis_index=grid.axis_index)
+    assert m.strehl == pytest.approx(expected, abs=0.01)
+    assert m.wavefront_focus_mm == pytest.approx(focal, rel=0.005)
 
 
 def _grating(levels: int, eps_r: float, freq_ghz: float, step_mm: float = 2.0, periods: int = 6):

@@ -36,3 +36,16 @@ def test_the_design_raster_is_finer_than_the_printer_and_bounded(plate):
     assert 60.0 / d.pixel_mm <= grids.DESIGN_MAX_PIXELS_ACROSS
     assert d.layer_height_mm <= 0.3 / (32 * 0.67)
     assert "memory" in d.note
+
+
+def test_the_march_runs_on_whole_pixel_sub_cells_of_an_eighth_wavelength(plate):
+    """0.45 mm cells (nine 50 um pixels) at 155 GHz split 3 x 3 into 0.15 mm, the first whole-pixel split at or
+    below lambda/8 = 0.242 mm (our rule; Goodman 2005 3.10 needs only lambda/2 for propagating waves, the finer
+    sub-cells keep a zone wall's mixed cell thin). A lattice keeps one period per cell (its effective medium)."""
+    lam = 299.792458 / 155.0
+    grid = grids.analysis_grid(plate, 0.05, lam)
+    assert grid.cell_mm == pytest.approx(0.45)
+    assert grids.field_subdivision(grid, 0.05, lam) == 3
+    assert grid.subdivided(3).shape == (grid.shape[0] * 3, grid.shape[1] * 3)
+    assert grids.field_subdivision(grid, 0.05, lam, period_mm=0.45) == 1
+    assert grids.slice_mm(lam, 1.6733) == pytest.approx(lam / (3 * 1.6733))

@@ -57,7 +57,8 @@ def _wedge(angle_deg: float, n: float) -> LayerStack:
     x = (np.arange(nx) - nx / 2 + 0.5) * px
     top = 1.0 + (np.clip(x, -12, 12) + 12) * np.tan(np.radians(angle_deg))
     top[np.abs(x) > 14] = 0.0
-    masks = [np.broadcast_to(top[None, :] > (k + 0.5) * layer, (ny, nx)) for k in range(int(np.ceil(top.max() / layer)))]
+    layers = int(np.ceil(top.max() / layer))
+    masks = [np.broadcast_to(top[None, :] > (k + 0.5) * layer, (ny, nx)) for k in range(layers)]
     return LayerStack.from_masks(masks, pixel_mm=px, layer_height_mm=layer, origin_mm=(-nx / 2 * px, -ny / 2 * px, 0.0))
 
 
@@ -107,3 +108,24 @@ def test_the_cells_sample_the_band_limited_field_at_their_centres(sub):
     at_x = (window.offset[1] + np.arange(grid.shape[1]) * sub + (sub - 1) / 2) * window.cell_mm
     expected = np.exp(2j * np.pi * (fx * at_x[None, :] + fy * at_y[:, None]))
     assert cells[0] == pytest.approx(expected, abs=1e-9)
+
+
+@pytest.mark.parametrize(("cell_mm", "sub"), [(0.3, 3), (0.25, 1)])
+def test_the_block_sums_count_every_pixel_centre_once(cell_mm, sub):
+    """Fills from the block sums (regular blocks, and the fallback when a cell is not whole pixels) equal a plain
+    count of solid pixel centres per (sub-)cell (np.add.at)."""
+    rng = np.random.default_rng(7)
+    masks = [rng.random((37, 53)) < 0.4 for _ in range(3)]
+    stack = LayerStack.from_masks(masks, pixel_mm=0.1, layer_height_mm=0.1, origin_mm=(-2.63, -1.91, 0.0))
+    grid = CellGrid.around(axis_mm=(0.07, -0.03), half_extent_mm=(2.9, 2.2), cell_mm=cell_mm)
+    fine = grid.subdivided(sub)
+    for run in cell_runs(stack, grid, sub=sub):
+        rows = np.floor((stack.y_centres_mm - (grid.axis_mm[1] - grid.shape[0] / 2 * cell_mm)) / fine.cell_mm + 1e-6)
+        cols = np.floor((stack.x_centres_mm - (grid.axis_mm[0] - grid.shape[1] / 2 * cell_mm)) / fine.cell_mm + 1e-6)
+        count = np.zeros(fine.shape)
+        r, c = np.nonzero(stack.layer(run.first))
+        r, c = rows.astype(int)[r], cols.astype(int)[c]
+        inside = (r >= 0) & (r < fine.shape[0]) & (c >= 0) & (c < fine.shape[1])
+        np.add.at(count, (r[inside], c[inside]), 1.0)
+        expected = np.minimum(count * (0.1 / fine.cell_mm) ** 2, 1.0)
+        assert (run.fill if sub == 1 else run.fine_fill) == pytest.approx(expected, abs=1e-12)

@@ -48,10 +48,16 @@ def test_it_fills_the_report_contract(zoned):
 
 
 def test_the_zoned_plate_focuses_near_its_design_distance(zoned):
-    """An ideal-phase zoned plate at Fresnel number 7.5 focuses within 5 % of f, near diffraction-limited."""
+    """The section 8 zoned plate at Fresnel number 7.5: its wavefront converges within 5 % of f, the intensity peak
+    short of that (Li & Wolf 1981), and its focus scales with frequency like a zone plate's, f ~ nu (Goldsmith
+    1998 ch. 5; Hristov 2000). The plate's zone faces are cut for a thin element (optics.md section 8), so under
+    the thick model they bend the wave more than designed and it focuses a few per cent short (Snell at the face).
+    """
     focus = zoned[0].to_dict()["focus"]
-    assert focus["best_focus_mm"][1] == pytest.approx(30.0, rel=0.05)
-    assert focus["best_focus_mm"][0] < focus["best_focus_mm"][1] < focus["best_focus_mm"][2]  # zone plates disperse: f ~ freq
+    assert focus["wavefront_focus_mm"][1] == pytest.approx(30.0, rel=0.05)
+    assert focus["best_focus_mm"][1] < focus["wavefront_focus_mm"][1]
+    ratio = focus["wavefront_focus_mm"][2] / focus["wavefront_focus_mm"][0]
+    assert ratio == pytest.approx(320.0 / 280.0, rel=0.03)
     assert 0.8 < focus["strehl"][1] <= 1.05
     assert 0.95 < focus["fwhm_ratio"][1] < 1.1
     assert 0.3 < focus["focusing_efficiency"][1] < 1.0
@@ -91,18 +97,22 @@ def test_it_reports_progress_up_to_one(zoned):
     assert calls and calls[-1] == 1.0 and all(b >= a for a, b in zip(calls, calls[1:]))
 
 
-def test_a_meshed_slab_reproduces_the_airy_values_through_the_whole_pipeline():
-    """A 40 mm box, 2 mm thick, 2.8 / 0.02 under a 30 dB taper: T = 0.750801, 0.866972, 0.678039 (Airy, Born & Wolf 7.6)."""
+@pytest.mark.parametrize("focal_mm", [None, 100.0])
+def test_a_meshed_slab_reproduces_the_airy_values_through_the_whole_pipeline(focal_mm):
+    """A 40 mm box, 2 mm thick, 2.8 / 0.02 under a 30 dB taper: T = 0.750801, 0.866972, 0.678039 (Airy, Born & Wolf
+    7.6), whether or not a focal length sets the multi-slice march going (it changes the focus, never the losses)."""
     part = part_from(box(40.0, 40.0, 2.0), "slab")
     bay = printer(pixel_mm=0.05, layer_mm=0.05)
     stack = build_layer_stack(part, pixel_mm=0.05, layer_height_mm=0.05)
     d = optics_report(part=part, printed=stack, material=material(), printer=bay,
-                      settings=OpticsSettings(freqs_ghz=(75.0, 90.0, 110.0), edge_taper_db=30.0)).to_dict()
+                      settings=OpticsSettings(freqs_ghz=(75.0, 90.0, 110.0), edge_taper_db=30.0,
+                                              focal_length_mm=focal_mm)).to_dict()
     assert d["power_transmission"] == pytest.approx([0.750801, 0.866972, 0.678039], abs=2e-4)
     t, r = slab_airy(2.8, 0.02, 2.0, np.array([75.0, 90.0, 110.0]))
     assert d["power_reflection"] == pytest.approx(np.abs(r) ** 2, abs=2e-4)
     assert d["transmission_loss_db"] == pytest.approx(-10 * np.log10(np.abs(t) ** 2), abs=2e-3)
-    assert d["focus"] is None
+    assert (d["focus"] is None) == (focal_mm is None)
+    assert (d["analysis"]["multislice"] is None) == (focal_mm is None)
 
 
 def test_spillover_of_a_disc_follows_the_edge_taper():
