@@ -16,7 +16,7 @@ from services.optics.transmission import CellSParams
 # FWHM so a blurred spot does not widen its own iris.
 EFFICIENCY_RADIUS_FWHM = 3.0
 SCAN_FROM, SCAN_TO = 0.1, 2.0  # best-focus search range as a share of the intended focal length
-REFERENCE_SAMPLES = 80  # the reference's peak is searched over a narrower range, so with fewer samples
+REFERENCE_SAMPLES = 120  # the reference's peak is searched over a narrower range, so with fewer samples
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -106,8 +106,9 @@ def focus_metrics(field: np.ndarray, illum: Illumination, *, wavelength_mm: floa
                                    (np.arange(field.shape[0]) - axis_index[0]) * illum.cell_mm))
     ideal_asm = AngularSpectrum(np.abs(field) * ideal_lens_phase(radius, d_wave, wavelength_mm),
                                 cell_mm=illum.cell_mm, wavelength_mm=wavelength_mm)
-    # An aberration-free wave peaks short of its centre (Li & Wolf 1981), within half of it above Fresnel number 1.
-    ideal = spot_at(ideal_asm, best_focus_mm(ideal_asm, axis_index, max(lo, d_wave / 2), min(hi, 1.05 * d_wave),
+    # An aberration-free wave peaks short of its centre by about 1 / (1 + pi^2 N^2 / 12) of it (Li & Wolf
+    # 1981, from memory): past a quarter of it down to Fresnel number N = 0.6.
+    ideal = spot_at(ideal_asm, best_focus_mm(ideal_asm, axis_index, max(lo, d_wave / 4), min(hi, 1.05 * d_wave),
                                              samples=REFERENCE_SAMPLES)[0])
     iris = EFFICIENCY_RADIUS_FWHM * float(np.mean(ideal.fwhm_mm))
     inside = encircled_power(np.abs(spot.field) ** 2, illum.cell_mm, spot.peak_index, iris)

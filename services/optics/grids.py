@@ -19,7 +19,8 @@ DESIGN_LAYER_PHASE_STEPS = 32     # a design layer delays the phase by at most 2
 DESIGN_MAX_LAYERS = 800           # bounds the transfer-matrix loop (one pass per distinct run of layers)
 # The multi-slice field runs on sub-cells of about lambda/8: a cell straddling a zone wall mixes two
 # paths a full wave apart, and the smaller the sub-cell the thinner the ring where that mix cancels
-# (computed: the 60 mm zoned benchmark lens reads Strehl 0.86 at lambda/4 cells, see benchmarks/README.md).
+# (computed on 60 mm zoned lenses: lambda/13 sub-cells add 0.005-0.012 to the Strehl ratio of lambda/4
+# cells, and lambda/39 only 0.002 more; benchmarks/README.md).
 FIELD_CELLS_PER_WAVELENGTH = 8
 MAX_FIELD_CELLS_ACROSS = 1024     # bounds the multi-slice FFT window like MAX_CELLS_ACROSS bounds the cells
 SLICES_PER_WAVELENGTH = 3         # multi-slice steps per wavelength in the material (focus within 0.1 mm of 8 steps)

@@ -34,7 +34,7 @@ def _all_ended(checks, *, maintenance_stale_s: int | None = None) -> bool:
 def test_a_redis_restart_loses_no_check(alice, seeded, redis):
     """Checks queued and running when the broker restarts all end done, each run once."""
     with worker_process(redis_url=redis.url) as a, worker_process(redis_url=redis.url) as b:
-        checks = [submit(alice, sphere_stl(5.0), f"ball-{i}.stl") for i in range(8)]
+        checks = [submit(alice, sphere_stl(8.0), f"ball-{i}.stl") for i in range(8)]
         wait_until(lambda: _counts(checks).get("running", 0) >= 1 and _counts(checks).get("queued", 0) >= 3,
                    timeout_s=120, what="checks both running and queued")
         redis.restart()
@@ -64,7 +64,7 @@ def test_workers_ride_out_a_database_outage(alice, seeded, redis):
     try:
         with worker_process(redis_url=redis.url, extra_env=env) as a, \
                 worker_process(redis_url=redis.url, extra_env=env) as b:
-            checks = [submit(alice, sphere_stl(5.0), f"ball-{i}.stl") for i in range(6)]
+            checks = [submit(alice, sphere_stl(8.0), f"ball-{i}.stl") for i in range(6)]
             wait_until(lambda: _counts(checks).get("running", 0) >= 1, timeout_s=120, what="a check running")
             cut = proxy.pause()
             time.sleep(5)  # the outage itself

@@ -27,14 +27,14 @@ def _ended(check: Check) -> Check:
 @pytest.mark.slow
 @pytest.mark.django_db(transaction=True)
 def test_a_part_over_the_memory_or_time_limit_ends_with_a_sentence_and_the_worker_lives_on(alice, seeded, redis):
-    """With 320 MiB per check and a 6 s soft limit: a big plate runs out of memory, a big ball out of time."""
-    # Measured on this machine: a small box adds ~180 MiB of address space to a child, the 120 x 75 mm
-    # plate ~520 MiB; the ball takes 10-30 s. The limits are the worker's, whatever the sender's are.
-    env = {**WORKER_ENV, "PHASEWRIGHT_CHECK_MEMORY_MIB": "320", "PHASEWRIGHT_CHECK_SOFT_LIMIT_S": "6",
+    """With 320 MiB per check and a 5 s soft limit: a big plate runs out of memory, a big ball out of time."""
+    # Measured on this machine: a small box adds ~180 MiB of address space to a child and takes under 1 s;
+    # the 120 x 75 mm plate adds ~520 MiB; the 60 mm ball takes over 30 s. The limits are the worker's.
+    env = {**WORKER_ENV, "PHASEWRIGHT_CHECK_MEMORY_MIB": "320", "PHASEWRIGHT_CHECK_SOFT_LIMIT_S": "5",
            "PHASEWRIGHT_CHECK_HARD_LIMIT_S": "30"}
     with worker_process(redis_url=redis.url, extra_env=env) as worker:
         plate = _ended(submit(alice, box_stl(120.0, 75.0, 10.0), "plate.stl"))
-        ball = _ended(submit(alice, sphere_stl(14.0, 4), "ball.stl"))
+        ball = _ended(submit(alice, sphere_stl(30.0, 5), "ball.stl"))
         small = _ended(submit(alice, box_stl(), "small.stl"))
         assert worker.poll() is None
     assert (plate.status, plate.error_code, plate.error) == ("failed", "memory_limit", MEMORY_LIMIT_SENTENCE)

@@ -33,7 +33,7 @@ def _requeue_when_stale() -> bool:
 def test_a_check_whose_worker_is_killed_completes_on_another(alice, seeded, redis):
     """SIGKILL of the whole worker mid-check: the job requeues it, worker B finishes it, one report, attempts 2."""
     with worker_process(redis_url=redis.url) as worker_a:
-        check = submit(alice, sphere_stl(8.0), "ball.stl")
+        check = submit(alice, sphere_stl(20.0, 4), "ball.stl")
         wait_until(lambda: _state(check).status == "running" and check.progress > 0, timeout_s=120,
                    what="worker A starting the check")
         with worker_process(redis_url=redis.url) as worker_b:
@@ -48,7 +48,7 @@ def test_a_check_whose_worker_is_killed_completes_on_another(alice, seeded, redi
 def test_a_check_that_loses_its_worker_three_times_fails_with_a_sentence(alice, seeded, redis):
     """Each of three attempts loses its pool process; the check then ends failed with a sentence, the worker lives."""
     with worker_process(redis_url=redis.url) as worker:
-        check = submit(alice, sphere_stl(8.0), "ball.stl")
+        check = submit(alice, sphere_stl(20.0, 4), "ball.stl")
         for attempt in (1, 2, 3):
             wait_until(lambda: _state(check).status == "running" and check.attempts == attempt, timeout_s=120,
                        what=f"attempt {attempt} starting")

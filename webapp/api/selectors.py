@@ -35,10 +35,22 @@ def design_filter(*, user, q: str = "", sha256: str = "", kind: str = "", parame
     if parametric is not None:
         designs = designs.exclude(kind="") if parametric else designs.filter(kind="")
     if created_after:
-        designs = designs.filter(created_at__gte=created_after)
+        designs = designs.filter(created_at__gte=_as_utc(created_after))
     if created_before:
-        designs = designs.filter(created_at__lt=created_before)
+        designs = designs.filter(created_at__lt=_as_utc(created_before))
     return designs
+
+
+def _as_utc(moment):
+    """Return the moment in UTC: PostgreSQL refuses offsets beyond +-15:59 that ISO 8601 parsers accept."""
+    from datetime import datetime, timezone
+
+    if moment.tzinfo is None:
+        return moment.replace(tzinfo=timezone.utc)
+    try:
+        return moment.astimezone(timezone.utc)
+    except OverflowError:  # year 1 or 9999 pushed past the calendar by its offset
+        return datetime.min.replace(tzinfo=timezone.utc) if moment.year < 2 else datetime.max.replace(tzinfo=timezone.utc)
 
 
 def design_revisions_for(*, user, design: Design):

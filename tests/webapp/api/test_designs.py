@@ -128,3 +128,10 @@ def test_it_explains_a_bad_parameter(as_alice):
     response = as_alice.post("designs/parametric", {**request, "parameters": {}, "printer": "bay9"})
     assert response.status_code == 400 and response.json()["code"] == "unknown_printer"
     assert "bay1-lcd-resin" in response.json()["message"]
+
+
+def test_it_filters_by_dates_with_any_offset(as_alice):
+    """A date filter with an offset PostgreSQL would refuse (-17:26) is read as its UTC moment, not a 500."""
+    as_alice.upload(box_stl(), units="mm")
+    response = as_alice.get("designs", {"created_after": "0478-06-14T09:20:38-17:26"})
+    assert response.status_code == 200 and len(response.json()["items"]) == 1
