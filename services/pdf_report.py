@@ -250,12 +250,12 @@ def _optics(doc: _Document, optics: dict | None, figures: Mapping[str, bytes]) -
     _heading(doc, "Optics at the design frequencies", room_mm=60)
     _text(doc, "Each value as designed / as printed on this printer's pixel and layer grid. Distances from "
                + str(optics.get("distances_from", "the part's far extreme")) + ".", 8.5, colour=MUTED)
-    table = [["GHz", "εr", "tan δ", "Loss (dB)", "Strehl", "Best focus (mm)", "Phase RMS (rad)"]]
+    table = [["GHz", "εr", "tan δ", "Loss (dB)", "Strehl", "Focus (mm)", "Phase RMS (rad)"]]
     for r in rows:
         d, p = r["designed"], r["printed"]
         table.append([f"{r['freq_ghz']:g}", _num(r["eps_r"], 3), _num(r["tan_delta"], 4),
                       _pair(d.get("transmission_loss_db"), p.get("transmission_loss_db"), 2),
-                      _pair(d.get("strehl"), p.get("strehl"), 3), _pair(d.get("best_focus_mm"), p.get("best_focus_mm"), 1),
+                      _pair(d.get("strehl"), p.get("strehl"), 3), _pair(d.get("wavefront_focus_mm"), p.get("wavefront_focus_mm"), 1),
                       _num(r["phase_rms_rad"], 3)])
     _table(doc, table, (16, 16, 18, 32, 30, 36, 30))
     for name in ("optics_loss.png", "optics_focal_plane.png"):

@@ -48,7 +48,8 @@ def _focus_at(focus: dict | None, i: int) -> dict:
     if not focus:
         return {}
     fwhm = _at(focus.get("fwhm_mm"), i)
-    return {"best_focus_mm": _at(focus.get("best_focus_mm"), i), "strehl": _at(focus.get("strehl"), i),
+    return {"best_focus_mm": _at(focus.get("best_focus_mm"), i),
+            "wavefront_focus_mm": _at(focus.get("wavefront_focus_mm"), i), "strehl": _at(focus.get("strehl"), i),
             "fwhm_mm": (sum(fwhm) / len(fwhm)) if fwhm else None, "fwhm_ratio": _at(focus.get("fwhm_ratio"), i),
             "focusing_efficiency": _at(focus.get("focusing_efficiency"), i)}
 
