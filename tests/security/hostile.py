@@ -14,14 +14,13 @@ import gzip
 import io
 import struct
 import sys
-import zipfile
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Callable
 
 import numpy as np
 
-from tests.data.make_files import (CONTENT_TYPES, CORE_NS, RELS, ZIP_TIME, billion_laughs, cube, lying_zip, model_xml, obj,
+from tests.data.make_files import (CONTENT_TYPES, CORE_NS, RELS, billion_laughs, cube, lying_zip, model_xml, obj,
                                    package, ply_binary, stl_ascii, stl_binary, zip_bytes)
 
 ROOT = Path(__file__).resolve().parents[2]

@@ -6,7 +6,7 @@ import pytest
 from django.test import Client
 from django.urls import Resolver404, resolve
 
-from tests.security.test_urls import Persona, _candidates, world  # noqa: F401  (world is a fixture)
+from tests.security.personas import Persona, candidates
 from tests.security.urlsweep import fill, routes
 
 pytestmark = pytest.mark.django_db
@@ -25,7 +25,7 @@ _FORM = re.compile(rb"(?is)<form\b([^>]*)>(.*?)</form>")
 
 def test_every_post_form_carries_a_csrf_token(world, alice, bob):
     """Each page a signed-in user (designer or lab manager) can open: every POST form holds the token."""
-    values, _ = _candidates(world, alice)
+    values, _ = candidates(world, alice)
     checked = 0
     for user in (alice, bob):
         person = Persona(user, None)
@@ -45,7 +45,7 @@ def test_every_post_form_carries_a_csrf_token(world, alice, bob):
 
 def test_every_url_refuses_a_post_without_the_token(world, alice):
     """A signed-in browser's POST without the CSRF token is refused (403), or the URL takes no POST (405)."""
-    values, _ = _candidates(world, alice)
+    values, _ = candidates(world, alice)
     browser = Client(enforce_csrf_checks=True)
     browser.force_login(alice)
     refused = 0
