@@ -23,43 +23,32 @@ import numpy as np
 
 from services.findings import Finding
 from services.rules import RuleOutput
-from services.rules.common import fmt_xyz, limit_mm, missing_note, output, picture
+from services.rules.common import RuleCollector, family_check, fmt_xyz, output, picture
 from services.rules.scan import RunView, refine_width
 
 RULE = "aspect_ratio"
 
 
-def check(*, stack, part, printer):
-    """Return the aspect_ratio findings on the layer stack."""
-    from services.rules.registry import run_family
-
-    return run_family(RULE, stack=stack, part=part, printer=printer)
+check = family_check(RULE)
 
 
-class Collector:
+class Collector(RuleCollector):
     """Track features upward and keep each layer's width as a section of its feature."""
 
-    pad_px = 2
+    rule = RULE
 
-    def __init__(self, *, stack, part, printer) -> None:
-        limits = printer.rule(RULE)
-        self.active = False
-        self.notes: list[Finding] = []
-        if limits is None:
-            return
-        self.caution, self.blocker = limit_mm(limits, "caution"), limit_mm(limits, "blocker")
-        if self.caution is None and self.blocker is None:
-            self.notes.append(missing_note(RULE, printer, "height-to-width limit (caution or blocker)"))
-            return
-        for key, value in (("caution", self.caution), ("blocker", self.blocker)):
-            if value is None:
-                self.notes.append(missing_note(RULE, printer, f"{key} limit for slender features"))
-        self.active = True
+    def start(self, limits: dict, *, stack, printer) -> bool:
+        (self.caution, self.blocker), _, ok = self.read_limits(
+            limits, printer, "height-to-width limit (caution or blocker)",
+            {key: f"{key} limit for slender features" for key in ("caution", "blocker")}, severity=False)
+        if not ok:
+            return False
         self._tracks = 0
         self._narrowest = np.zeros(0)  # per feature: its narrowest width so far (px)
         self._prev: tuple[np.ndarray, np.ndarray] | None = None  # (track per label, width per label)
         self._sections: list[tuple[np.ndarray, ...]] = []
         self._top: list[np.ndarray] = []
+        return True
 
     def visit(self, view: RunView) -> None:
         count, _ = view.solid

@@ -29,6 +29,59 @@ def missing_note(rule: str, printer, what: str) -> Finding:
     return Finding(rule, "note", f"Not checked: printer profile {printer.name!r} gives no {what}.")
 
 
+def family_check(rule: str, doc: str | None = None):
+    """Return a family's ``check(*, stack, part, printer)``: its output from the shared pass."""
+    def check(*, stack, part, printer):
+        from services.rules.registry import run_family
+
+        return run_family(rule, stack=stack, part=part, printer=printer)
+
+    check.__doc__ = doc or f"Return the {rule} findings on the layer stack."
+    return check
+
+
+class RuleCollector:
+    """Start of every family's collector: off unless the profile has the rule, notes for missing limits.
+
+    A family sets ``rule`` and writes ``start(limits, stack=, printer=)``, which reads its limits,
+    records what is missing with ``missing`` and returns whether the family runs.
+    """
+
+    rule = ""
+    pad_px = 2
+
+    def __init__(self, *, stack, part, printer) -> None:
+        limits = printer.rule(self.rule)
+        self.active = False
+        self.notes: list[Finding] = []
+        if limits is None:
+            return
+        self.active = bool(self.start(limits, stack=stack, printer=printer))
+
+    def start(self, limits: dict, *, stack, printer) -> bool:
+        raise NotImplementedError
+
+    def missing(self, printer, what: str, when: bool = True) -> bool:
+        """Record the note for a limit the profile lacks when ``when`` holds; return ``when``."""
+        if when:
+            self.notes.append(missing_note(self.rule, printer, what))
+        return when
+
+    def read_limits(self, limits: dict, printer, needed: str, each: dict[str, str | None], severity: bool = True):
+        """Return the limits named in ``each`` (None where missing), the severity and whether the family runs.
+
+        Notes ``needed`` when no limit (or no severity) is given; otherwise notes each missing limit
+        whose entry in ``each`` says what it is.
+        """
+        values = [limit_mm(limits, key) for key in each]
+        level = severity_of(limits) if severity else None
+        if self.missing(printer, needed, (severity and level is None) or all(v is None for v in values)):
+            return values, level, False
+        for what, value in zip(each.values(), values):
+            self.missing(printer, what, what is not None and value is None)
+        return values, level, True
+
+
 class Groups:
     """Components found run by run, joined into instances where they touch from one run to the next.
 

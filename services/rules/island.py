@@ -16,40 +16,29 @@ import numpy as np
 
 from services.findings import Finding
 from services.rules import raster
-from services.rules.common import fmt_xyz, missing_note, output, picture, severity_of
+from services.rules.common import RuleCollector, family_check, fmt_xyz, output, picture, severity_of
 from services.rules.overhang import FLAT_STEPS, reach_px, undersides
 from services.rules.scan import RunView
 
 RULE = "island"
 
 
-def check(*, stack, part, printer):
-    """Return the island findings on the layer stack."""
-    from services.rules.registry import run_family
-
-    return run_family(RULE, stack=stack, part=part, printer=printer)
+check = family_check(RULE)
 
 
-class Collector:
+class Collector(RuleCollector):
     """Collect unsupported starts run by run."""
 
-    pad_px = 2
+    rule = RULE
 
-    def __init__(self, *, stack, part, printer) -> None:
-        limits = printer.rule(RULE)
-        self.active = False
-        self.notes: list[Finding] = []
-        if limits is None:
-            return
+    def start(self, limits: dict, *, stack, printer) -> bool:
         self.severity = severity_of(limits)
-        if self.severity is None:
-            self.notes.append(missing_note(RULE, printer, "severity for islands"))
-            return
+        if self.missing(printer, "severity for islands", self.severity is None):
+            return False
         self.reach = reach_px(printer, stack)
-        if self.reach is None:
-            self.notes.append(missing_note(RULE, printer, "self-supporting angle (flat starts were not checked)"))
-        self.active = True
+        self.missing(printer, "self-supporting angle (flat starts were not checked)", self.reach is None)
         self.found: list[tuple[np.ndarray, np.ndarray, np.ndarray]] = []  # (area px, flat index, layer)
+        return True
 
     def visit(self, view: RunView) -> None:
         found = undersides(view, self.reach)

@@ -30,44 +30,33 @@ import numpy as np
 
 from services.findings import Finding
 from services.rules import RuleOutput, raster
-from services.rules.common import Groups, fmt_mm, fmt_xyz, limit_mm, missing_note, output, picture, severity_of
+from services.rules.common import Groups, RuleCollector, family_check, fmt_mm, fmt_xyz, output, picture
 from services.rules.scan import RunView, refine_width
 
 RULE = "min_feature"
 
 
-def check(*, stack, part, printer):
-    """Return the min_feature findings on the layer stack."""
-    from services.rules.registry import run_family
-
-    return run_family(RULE, stack=stack, part=part, printer=printer)
+check = family_check(RULE)
 
 
-class Collector:
+class Collector(RuleCollector):
     """Collect thin material run by run; ``finish`` turns the instances into findings."""
 
-    pad_px = 2
+    rule = RULE
 
-    def __init__(self, *, stack, part, printer) -> None:
-        limits = printer.rule(RULE)
-        self.active = False
-        self.notes: list[Finding] = []
-        if limits is None:
-            return
-        self.sup_mm, self.uns_mm = limit_mm(limits, "supported_mm"), limit_mm(limits, "unsupported_mm")
-        self.severity = severity_of(limits)
-        if self.severity is None or (self.sup_mm is None and self.uns_mm is None):
-            self.notes.append(missing_note(RULE, printer, "minimum feature size and severity"))
-            return
-        if self.sup_mm is None:
-            self.notes.append(missing_note(RULE, printer, "limit for supported walls (only free-standing features were checked)"))
+    def start(self, limits: dict, *, stack, printer) -> bool:
+        (self.sup_mm, self.uns_mm), self.severity, ok = self.read_limits(
+            limits, printer, "minimum feature size and severity",
+            {"supported_mm": "limit for supported walls (only free-standing features were checked)", "unsupported_mm": None})
+        if not ok:
+            return False
         px = stack.pixel_mm
         self.n_sup = raster.limit_px(self.sup_mm, px) if self.sup_mm else None
         self.n_uns = raster.limit_px(self.uns_mm, px) if self.uns_mm else None
-        self.active = True
         self.free, self.attached = Groups("min"), Groups("min")
         self._prev_free: np.ndarray | None = None  # solid label -> group id in the previous run, -1 if none
         self._prev_attached: tuple[np.ndarray, np.ndarray] | None = None  # (flat pixels, group id of each)
+        return True
 
     def visit(self, view: RunView) -> None:
         free_lut, rows, cols, width, depth = thin_parts(view, self.n_sup, self.n_uns)

@@ -21,7 +21,7 @@ import numpy as np
 
 from services.findings import Finding
 from services.rules import raster
-from services.rules.common import Groups, fmt_mm, fmt_xyz, limit_mm, missing_note, output, picture, severity_of
+from services.rules.common import Groups, RuleCollector, family_check, fmt_mm, fmt_xyz, limit_mm, output, picture
 from services.rules.min_feature import _next_to, add_pixel_groups, link_pixels
 from services.rules.scan import RunView
 
@@ -29,38 +29,26 @@ RULE = "min_gap"
 HOLE_SHAPE = 1.5  # a roofed void no wider than 1.5x its height is a horizontal hole, not a gap
 
 
-def check(*, stack, part, printer):
-    """Return the min_gap findings on the layer stack."""
-    from services.rules.registry import run_family
-
-    return run_family(RULE, stack=stack, part=part, printer=printer)
+check = family_check(RULE)
 
 
-class Collector:
+class Collector(RuleCollector):
     """Collect narrow void run by run; ``finish`` adds the horizontal gaps found along z."""
 
-    pad_px = 2
+    rule = RULE
 
-    def __init__(self, *, stack, part, printer) -> None:
-        limits = printer.rule(RULE)
-        self.active = False
-        self.notes: list[Finding] = []
-        if limits is None:
-            return
-        self.xy_mm, self.z_mm = limit_mm(limits, "xy_mm"), limit_mm(limits, "z_mm")
-        self.severity = severity_of(limits)
-        if self.severity is None or (self.xy_mm is None and self.z_mm is None):
-            self.notes.append(missing_note(RULE, printer, "minimum gap and severity"))
-            return
-        for key, value in (("gap in the layer plane (xy_mm)", self.xy_mm), ("gap along the build axis (z_mm)", self.z_mm)):
-            if value is None:
-                self.notes.append(missing_note(RULE, printer, key))
+    def start(self, limits: dict, *, stack, printer) -> bool:
+        (self.xy_mm, self.z_mm), self.severity, ok = self.read_limits(
+            limits, printer, "minimum gap and severity",
+            {"xy_mm": "gap in the layer plane (xy_mm)", "z_mm": "gap along the build axis (z_mm)"})
+        if not ok:
+            return False
         self.n_xy = raster.limit_px(self.xy_mm, stack.pixel_mm) if self.xy_mm else None
         self.hole_px2 = _hole_area_px(printer, stack.pixel_mm)
         self.needs = ("bounded",) if self.z_mm else ()
-        self.active = True
         self.groups = Groups("min")
         self._prev: tuple[np.ndarray, np.ndarray] | None = None
+        return True
 
     def visit(self, view: RunView) -> None:
         if self.n_xy is None:

@@ -20,45 +20,33 @@ import numpy as np
 
 from services.findings import Finding
 from services.rules import raster
-from services.rules.common import Groups, fmt_mm, fmt_xyz, limit_mm, missing_note, output, picture, severity_of
+from services.rules.common import Groups, RuleCollector, family_check, fmt_mm, fmt_xyz, output, picture
 from services.rules.min_gap import HOLE_SHAPE
 from services.rules.scan import RunView
 
 RULE = "min_hole"
 
 
-def check(*, stack, part, printer):
-    """Return the min_hole findings on the layer stack."""
-    from services.rules.registry import run_family
-
-    return run_family(RULE, stack=stack, part=part, printer=printer)
+check = family_check(RULE)
 
 
-class Collector:
+class Collector(RuleCollector):
     """Collect small enclosed holes run by run; ``finish`` adds the horizontal holes."""
 
-    pad_px = 2
+    rule = RULE
 
-    def __init__(self, *, stack, part, printer) -> None:
-        limits = printer.rule(RULE)
-        self.active = False
-        self.notes: list[Finding] = []
-        if limits is None:
-            return
-        self.along_mm, self.across_mm = limit_mm(limits, "along_z_mm"), limit_mm(limits, "across_z_mm")
-        self.severity = severity_of(limits)
-        if self.severity is None or (self.along_mm is None and self.across_mm is None):
-            self.notes.append(missing_note(RULE, printer, "minimum hole diameter and severity"))
-            return
-        for key, value in (("hole diameter along the build axis (along_z_mm)", self.along_mm),
-                           ("hole diameter across the build axis (across_z_mm)", self.across_mm)):
-            if value is None:
-                self.notes.append(missing_note(RULE, printer, key))
+    def start(self, limits: dict, *, stack, printer) -> bool:
+        (self.along_mm, self.across_mm), self.severity, ok = self.read_limits(
+            limits, printer, "minimum hole diameter and severity",
+            {"along_z_mm": "hole diameter along the build axis (along_z_mm)",
+             "across_z_mm": "hole diameter across the build axis (across_z_mm)"})
+        if not ok:
+            return False
         self.px = stack.pixel_mm
         self.needs = ("bounded",) if self.across_mm else ()
-        self.active = True
         self.groups = Groups("min")
         self._prev: np.ndarray | None = None  # void label -> group id in the previous run, -1 if none
+        return True
 
     def visit(self, view: RunView) -> None:
         if self.along_mm is None or not view.enclosed.any():

@@ -25,18 +25,14 @@ import numpy as np
 
 from services.findings import Finding
 from services.rules import raster
-from services.rules.common import fmt_xyz, limit_mm, missing_note, output, picture, severity_of
+from services.rules.common import RuleCollector, family_check, fmt_xyz, limit_mm, output, picture, severity_of
 from services.rules.scan import RunView
 
 RULE = "overhang"
 FLAT_STEPS = 4.0  # a region reaching farther than this many self-supporting steps in one layer is a flat start
 
 
-def check(*, stack, part, printer):
-    """Return the overhang findings and the support-volume estimate."""
-    from services.rules.registry import run_family
-
-    return run_family(RULE, stack=stack, part=part, printer=printer)
+check = family_check(RULE, "Return the overhang findings and the support-volume estimate.")
 
 
 def reach_px(printer, stack) -> float | None:
@@ -120,28 +116,22 @@ def _slopes(found: dict, reach: float, frame) -> tuple[np.ndarray, np.ndarray]:
     return np.isfinite(per_pixel), per_pixel
 
 
-class Collector:
+class Collector(RuleCollector):
     """Collect overhanging pixels in plan view and count support columns under everything loose."""
 
-    pad_px = 2
+    rule = RULE
     needs = ("below",)
 
-    def __init__(self, *, stack, part, printer) -> None:
-        limits = printer.rule(RULE)
-        self.active = False
-        self.notes: list[Finding] = []
-        if limits is None:
-            return
+    def start(self, limits: dict, *, stack, printer) -> bool:
         self.angle = limit_mm(limits, "self_supporting_deg")
         self.severity = severity_of(limits)
         self.reach = reach_px(printer, stack)
-        if self.severity is None or self.reach is None:
-            self.notes.append(missing_note(RULE, printer, "self-supporting angle and severity"))
-            return
-        self.active = True
+        if self.missing(printer, "self-supporting angle and severity", self.severity is None or self.reach is None):
+            return False
         self.support_mm3 = 0.0
         self.map: np.ndarray | None = None  # plan view: angle (deg) of the shallowest overhang per pixel
         self.layer_map: np.ndarray | None = None
+        return True
 
     def visit(self, view: RunView) -> None:
         found = undersides(view, self.reach)

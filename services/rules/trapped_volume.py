@@ -22,44 +22,31 @@ from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components
 
 from services.findings import Finding
-from services.rules.common import fmt_xyz, limit_mm, missing_note, output, picture, severity_of
+from services.rules.common import RuleCollector, family_check, fmt_xyz, limit_mm, output, picture, severity_of
 from services.rules.scan import RunView
 
 RULE = "trapped_volume"
 SPECK_PX = 4  # pockets under 4 pixels are specks where the pixel grid closes a diagonal, not cavities
 
 
-def check(*, stack, part, printer):
-    """Return the trapped_volume findings on the layer stack."""
-    from services.rules.registry import run_family
-
-    return run_family(RULE, stack=stack, part=part, printer=printer)
+check = family_check(RULE)
 
 
-class Collector:
+class Collector(RuleCollector):
     """Follow enclosed pockets up the stack and join them into cavities."""
 
-    pad_px = 2
+    rule = RULE
 
-    def __init__(self, *, stack, part, printer) -> None:
-        limits = printer.rule(RULE)
-        self.active = False
-        self.notes: list[Finding] = []
-        if limits is None:
-            return
+    def start(self, limits: dict, *, stack, printer) -> bool:
         self.severity = severity_of(limits)
         self.vat = printer.process == "vat_photopolymerisation"
         self.cup_severity = severity_of(limits, "cup_severity") if self.vat else None
         self.drain_mm = limit_mm(limits, "drain_hole_mm")
-        if self.severity is None:
-            self.notes.append(missing_note(RULE, printer, "severity for sealed cavities"))
-            return
-        if self.vat and self.drain_mm is None:
-            self.notes.append(missing_note(RULE, printer, "drain-hole diameter (no hole size is suggested)"))
-        if self.vat and self.cup_severity is None:
-            self.notes.append(missing_note(RULE, printer, "severity for cups (cups were not checked)"))
+        if self.missing(printer, "severity for sealed cavities", self.severity is None):
+            return False
+        self.missing(printer, "drain-hole diameter (no hole size is suggested)", self.vat and self.drain_mm is None)
+        self.missing(printer, "severity for cups (cups were not checked)", self.vat and self.cup_severity is None)
         self.count = stack.count
-        self.active = True
         self.nodes: list[tuple[np.ndarray, ...]] = []  # per run: area px, flat index, first, last
         self.size = 0
         self.parent: list[int] = []
@@ -67,6 +54,7 @@ class Collector:
         self.cup: list[bool] = []
         self.edges: list[tuple[int, int]] = []
         self._prev: np.ndarray | None = None  # void label -> node id in the previous run, -1 for open air
+        return True
 
     def visit(self, view: RunView) -> None:
         count, labels, outside = view.void
