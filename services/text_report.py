@@ -2,10 +2,7 @@
 
 from __future__ import annotations
 
-
-def _duration(seconds: float) -> str:
-    minutes = round(seconds / 60)
-    return f"{minutes // 60} h {minutes % 60:02d} min" if minutes >= 60 else f"{minutes} min"
+from services.estimate.time_models import format_duration
 
 
 def report_text(r: dict) -> str:
@@ -22,7 +19,7 @@ def report_text(r: dict) -> str:
         lines.append(f"  [{f['severity']}] {f['rule']}{count}: {f['message']}{where}")
     est = r.get("estimate")
     if est:
-        lines.append(f"  estimate: {est['material_ml']:.1f} ml, {_duration(est['print_time_s'])}, "
+        lines.append(f"  estimate: {est['material_ml']:.1f} ml, {format_duration(est['print_time_s'])}, "
                      f"{est['cost']['total']:.2f} {est['cost']['currency']} for one")
     opt = r.get("optics")
     if opt and opt.get("frequencies_ghz"):

@@ -1,5 +1,7 @@
 from django import template
 
+from services.estimate.time_models import format_duration
+
 register = template.Library()
 
 VERDICT_LABELS = {"printable": "Printable", "printable_with_cautions": "Printable with cautions",
@@ -15,10 +17,9 @@ def verdict_label(value: str) -> str:
 def duration(seconds) -> str:
     """Return seconds as '3 h 05 min' or '12 min'."""
     try:
-        minutes = round(float(seconds) / 60)
+        return format_duration(float(seconds))
     except (TypeError, ValueError):
         return ""
-    return f"{minutes // 60} h {minutes % 60:02d} min" if minutes >= 60 else f"{minutes} min"
 
 
 @register.filter
