@@ -5,6 +5,7 @@ from __future__ import annotations
 import hashlib
 import time
 import uuid
+from dataclasses import replace
 from datetime import timedelta
 
 from django.conf import settings
@@ -16,6 +17,7 @@ from django.utils import timezone
 
 from services.errors import UnusableInput
 from services.intake import UNITS, IntakeLimits, read_part
+from services.profiles import Material, PrinterProfile
 from services.report import build_report
 from services.settings import CheckSettings
 from webapp.catalogue.selectors import calibration_for
@@ -125,28 +127,15 @@ def check_run(*, check_id: int) -> None:
             data = fh.read()
         part = read_part(data, name=check.design.name, units=check.design.units or None, limits=intake_limits())
         if check.design.parameters:
-            from dataclasses import replace
-
             part = replace(part, parameters=check.design.parameters)
-        report = build_report(part=part, printer=_snapshot_printer(check), material=_snapshot_material(check),
+        report = build_report(part=part, printer=PrinterProfile.from_dict(check.printer_snapshot),
+                              material=Material.from_dict(check.material_snapshot),
                               settings=CheckSettings.from_dict(check.settings), progress=_progress_writer(check_id),
                               calibration=calibration_for(check.printer, check.printer_snapshot))
     except UnusableInput as exc:
         check_fail(check_id=check_id, code=exc.code, message=exc.message)
         return
     report_store(check=check, report=report)
-
-
-def _snapshot_printer(check: Check):
-    from services.profiles import PrinterProfile
-
-    return PrinterProfile.from_dict(check.printer_snapshot)
-
-
-def _snapshot_material(check: Check):
-    from services.profiles import Material
-
-    return Material.from_dict(check.material_snapshot)
 
 
 def report_store(*, check: Check, report) -> None:
