@@ -35,7 +35,7 @@ import trimesh
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
-from services.batch import BatchOptions, Client, run_batch  # noqa: E402
+from services.cli.batch import BatchOptions, Client, run_batch  # noqa: E402
 
 PY = str(ROOT / ".venv" / "bin" / "python")
 PG_DB = "phasewright_bench_api"

@@ -6,7 +6,8 @@
 * a 30 mm graded-index pillar plate for 300 GHz at a 0.48 mm period, about 3,000 cells (one batch
   union of all pillars with the base), no printer limits.
 
-Each run is a full ``build_component`` (geometry, manifold3d checks, intake's mesh examination) plus
+Set PHASEWRIGHT_CELL_TABLE_DIR to a fresh folder to time the plate's first build with its rigorous cell
+table (the later runs read it). Each run is a full ``build_component`` (geometry, manifold3d checks, intake's mesh examination) plus
 a binary STL export. Prints one JSON line per part, to paste into benchmarks/README.md ("Components").
 """
 

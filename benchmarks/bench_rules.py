@@ -39,6 +39,7 @@ from services.rules import run_rules  # noqa: E402
 CASES = (("pillar_plate_30mm", 0.025, 0.025), ("zoned_lens_60mm", 0.025, 0.025),
          ("pillar_plate_30mm", 0.05, 0.05), ("zoned_lens_60mm", 0.05, 0.05))
 SCALING = {"pillars_500": 1.2, "pillars_2000": 0.6, "pillars_8000": 0.3}  # name -> pitch (mm)
+DENSE = {"pillars_10000": 0.257}  # 10,005 pillars, the thinnest 1.75 px across at 50 um (issue 14's crash)
 REFERENCE_PITCH_MM = 0.47
 
 
@@ -104,7 +105,7 @@ def scaled_pillar_plate(pitch_mm: float):
 
 def ensure_scaling_parts() -> None:
     """Build the scaling plates in a child process, so this one's peak memory stays its own."""
-    for name, pitch in SCALING.items():
+    for name, pitch in {**SCALING, **DENSE}.items():
         path = PARTS_DIR / f"{name}.stl"
         if not path.exists():
             print(f"building {name}", flush=True)
@@ -125,7 +126,7 @@ def main(argv: list[str]) -> int:
         print(json.dumps(run_case(args.case, args.px, args.dz)))
         return 0
     ensure_scaling_parts()
-    cases = list(CASES) + [(name, 0.025, 0.025) for name in SCALING]
+    cases = list(CASES) + [(name, 0.025, 0.025) for name in SCALING] + [(name, 0.05, 0.05) for name in DENSE]
     results = []
     for name, px, dz in cases:
         out = subprocess.run([sys.executable, __file__, "--case", name, "--px", str(px), "--dz", str(dz)],

@@ -1,7 +1,7 @@
 #!/usr/bin/env bash
 # Start (or stop) Phasewright's production shape on this one machine, for tests and demos:
 # PostgreSQL and Redis on 127.0.0.1, gunicorn, two or more check workers that share nothing but the
-# database, the broker and the storage folder, and the maintenance job every minute.
+# database, the broker and the storage folder, and the sweeper (requeue_stale_checks --every-s 15).
 #
 #   deploy/single-host.sh start     # then open http://127.0.0.1:$PORT/ (user "designer", password printed)
 #   deploy/single-host.sh status
@@ -64,11 +64,13 @@ start_bg() {  # name, var dir, command...: run detached in its own session, reme
 need_services() {
   answers 5432 || { say "PostgreSQL does not answer on 127.0.0.1:5432; start it first"; exit 1; }
   if ! answers "$REDIS_PORT"; then
-    say "no Redis on 127.0.0.1:$REDIS_PORT: starting one (append-only file in $RUN_DIR/redis)"
+    say "no Redis on 127.0.0.1:$REDIS_PORT: starting one with deploy/redis-phasewright.conf (append-only file in $RUN_DIR/redis)"
     mkdir -p "$RUN_DIR/redis"
-    redis-server --port "$REDIS_PORT" --bind 127.0.0.1 --dir "$RUN_DIR/redis" --appendonly yes \
+    redis-server "$ROOT/deploy/redis-phasewright.conf" --port "$REDIS_PORT" --bind 127.0.0.1 --dir "$RUN_DIR/redis" \
       --daemonize yes --pidfile "$RUN_DIR/redis.pid" --logfile "$RUN_DIR/redis.log"
     for _ in $(seq 1 50); do answers "$REDIS_PORT" && break; sleep 0.1; done
+  elif command -v redis-cli >/dev/null && ! redis-cli -p "$REDIS_PORT" config get appendonly 2>/dev/null | grep -qx yes; then
+    say "warning: the Redis on 127.0.0.1:$REDIS_PORT keeps no append-only file; queued checks wait for the sweeper after a restart (see deploy/redis-phasewright.conf)"
   fi
   psql "$PG_URL/postgres" -tAc "SELECT 1 FROM pg_database WHERE datname = '$DB_NAME'" | grep -q 1 \
     || psql "$PG_URL/postgres" -qc "CREATE DATABASE $DB_NAME"
@@ -93,8 +95,7 @@ start() {
       MALLOC_ARENA_MAX=2 nice -n 10 "$ROOT/.venv/bin/celery" -A webapp worker --concurrency 1 --loglevel INFO \
       --hostname "single-$i@%h" --without-gossip --without-mingle
   done
-  start_bg maintenance "$RUN_DIR/maintenance" bash -c \
-    "while true; do '$PY' manage.py requeue_stale_checks; sleep 60; done"
+  start_bg maintenance "$RUN_DIR/maintenance" "$PY" manage.py requeue_stale_checks --every-s "${PHASEWRIGHT_SWEEP_EVERY_S:-15}"
   for _ in $(seq 1 100); do answers "$PORT" && break; sleep 0.2; done
   answers "$PORT" || { say "gunicorn did not answer on port $PORT; see $RUN_DIR/web.log"; stop; exit 1; }
   say "site on http://127.0.0.1:$PORT/ with $WORKERS workers; logs and pids in $RUN_DIR"

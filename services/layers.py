@@ -285,7 +285,7 @@ def _changed_layers(tris: np.ndarray, normals: tuple, heights: np.ndarray, tol_m
     """
     count = len(heights)
     changed = np.zeros(count + 1, dtype=bool)
-    changed[np.searchsorted(heights, tris[:, :, 2].ravel(), "left")] = True
+    changed[np.searchsorted(heights, tris[:, :, 2].ravel(), "right")] = True  # the slicer takes z_lo < h <= z_hi
     n_x, n_y, n_z = normals
     z = tris[:, :, 2]
     z_min = np.minimum(np.minimum(z[:, 0], z[:, 1]), z[:, 2])

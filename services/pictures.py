@@ -67,10 +67,12 @@ def map_png(values: np.ndarray, *, pixel_mm: float, unit: str, title: str, mask:
     vmax = float(np.nanmax(values)) if np.any(np.isfinite(values)) else 1.0
     vmin = float(np.nanmin(values)) if np.any(np.isfinite(values)) else 0.0
     span = vmax - vmin or 1.0
+    values, mask, shrink = _shrunk(values, mask, max_px)  # colour the picture's pixels, not the frame's
     rgb = colour_ramp((values - vmin) / span)
     if mask is not None:
         rgb[~mask] = VOID_RGB
     img, scale = _fit(rgb, max_px)
+    scale /= shrink
     pad, bar_w = 16, 16
     canvas = Image.new("RGB", (img.width + 2 * pad + bar_w + 90, img.height + 2 * pad + 44), "white")
     canvas.paste(img, (pad, pad + 22))
@@ -87,23 +89,68 @@ def map_png(values: np.ndarray, *, pixel_mm: float, unit: str, title: str, mask:
     return _png(canvas)
 
 
-def layer_crop_png(layer: np.ndarray, highlight: np.ndarray, *, pixel_mm: float, title: str, max_px: int = 360) -> bytes:
-    """Return a PNG of a layer crop: material grey, void light, highlighted pixels red, mm scale bar."""
+def _shrunk(values: np.ndarray, mask: np.ndarray | None, max_px: int):
+    """Return (values, mask, factor) reduced by area averaging to about twice ``max_px`` on the longer side.
+
+    A 4,000 x 4,000 thickness frame is coloured at 1,040 px instead of full size (the picture is 520 px
+    wide): the colour ramp's float copies of the full frame were the check's memory peak.
+    """
+    import cv2
+
+    factor = max(values.shape) / (2 * max_px)
+    if factor <= 1:
+        return values, mask, 1.0
+    size = (max(1, round(values.shape[1] / factor)), max(1, round(values.shape[0] / factor)))
+    filled = np.where(np.isfinite(values), values, 0.0).astype(np.float32)
+    if mask is None:
+        return cv2.resize(filled, size, interpolation=cv2.INTER_AREA), None, values.shape[1] / size[0]
+    cover = cv2.resize(mask.astype(np.float32), size, interpolation=cv2.INTER_AREA)
+    summed = cv2.resize(np.where(mask, filled, 0.0).astype(np.float32), size, interpolation=cv2.INTER_AREA)
+    # Mean over the solid part of each block, so a rim block is not darkened by the void around it.
+    small = np.divide(summed, cover, out=np.zeros_like(summed), where=cover > 0)
+    return small, cover >= 0.5, values.shape[1] / size[0]
+
+
+def layer_crop_png(layer: np.ndarray, highlight: np.ndarray, *, pixel_mm: float, title: str, max_px: int = 480) -> bytes:
+    """Return a PNG of a layer crop: material grey, void light, highlighted pixels red, mm scale bar.
+
+    A highlighted spot smaller than a few screen pixels gets a ring around it, so a one-pixel problem is seen.
+    """
     rgb = np.empty(layer.shape + (3,), np.uint8)
     rgb[:] = VOID_RGB
     rgb[layer] = MATERIAL_RGB
     rgb[highlight] = HIGHLIGHT_RGB
     img, scale = _fit(rgb, max_px)
     pad = 12
-    canvas = Image.new("RGB", (img.width + 2 * pad, img.height + 2 * pad + 42), "white")
-    ImageDraw.Draw(canvas).text((pad, 4), title, fill=(20, 20, 20), font=_font(13))
-    canvas.paste(img, (pad, pad + 18))
-    _add_scale_bar(canvas, pad, pad + 28 + img.height, scale / pixel_mm, img.width)
+    canvas = Image.new("RGB", (img.width + 2 * pad, img.height + 2 * pad + 48), "white")
+    draw = ImageDraw.Draw(canvas)
+    draw.text((pad, 4), title, fill=(20, 20, 20), font=_font(15))
+    canvas.paste(img, (pad, pad + 20))
+    _ring_small_spots(draw, highlight, scale, (pad, pad + 20), img.height)
+    _add_scale_bar(canvas, pad, pad + 30 + img.height, scale / pixel_mm, img.width)
     return _png(canvas)
 
 
-# Marker colours by severity: our red, amber and slate (the same as the site's severity badges).
-SEVERITY_RGB = {"blocker": (176, 38, 34), "caution": (168, 104, 0), "note": (86, 96, 122)}
+def _ring_small_spots(draw: ImageDraw.ImageDraw, highlight: np.ndarray, scale: float, at: tuple[int, int],
+                      height_px: int, min_px: float = 8.0, most: int = 12) -> None:
+    """Circle highlighted spots that would show smaller than ``min_px`` on screen (at most ``most`` of them)."""
+    import cv2
+
+    if not highlight.any() or scale * 3 >= min_px:
+        return
+    count, _, stats, centres = cv2.connectedComponentsWithStats(highlight.astype(np.uint8), connectivity=8)
+    for i in range(1, min(count, most + 1)):
+        if max(stats[i, cv2.CC_STAT_WIDTH], stats[i, cv2.CC_STAT_HEIGHT]) * scale >= min_px:
+            continue
+        x = at[0] + (centres[i][0] + 0.5) * scale
+        y = at[1] + height_px - (centres[i][1] + 0.5) * scale  # rows were flipped so +y points up
+        r = min_px
+        draw.ellipse([x - r, y - r, x + r, y + r], outline=HIGHLIGHT_RGB, width=2)
+
+
+# Marker colours and shapes by severity, as on the site (DEVELOPERS.md): aubergine square, ochre diamond,
+# slate circle; the shape tells the severity in grey print too.
+SEVERITY_RGB = {"blocker": (74, 33, 82), "caution": (122, 79, 0), "note": (79, 90, 116)}
 PART_RGB = np.array([176, 190, 208], float)
 PLATE_RGB, GRID_RGB = (236, 238, 242), (204, 208, 216)
 
@@ -118,12 +165,18 @@ class Marker:
 
 
 def _draw_marker(draw: ImageDraw.ImageDraw, x: float, y: float, label: str, severity: str, radius: int) -> None:
-    """Draw a filled disc (or a pill, for a long label) with the label in white."""
+    """Draw the severity's shape (square, diamond, circle; a pill for a long label) with the label in white."""
     fill = SEVERITY_RGB.get(severity, SEVERITY_RGB["note"])
     font = _font(int(radius * 1.25))
     half = max(radius, (draw.textlength(label, font=font) + radius) / 2)
-    draw.rounded_rectangle([x - half, y - radius, x + half, y + radius], radius=radius, fill=fill,
-                           outline=(255, 255, 255), width=max(1, radius // 5))
+    rim = max(1, radius // 5)
+    if severity == "caution" and half == radius:
+        r = radius * 1.35
+        draw.polygon([(x, y - r), (x + r, y), (x, y + r), (x - r, y)], fill=fill, outline=(255, 255, 255), width=rim)
+    else:
+        corner = max(1, radius // 4) if severity == "blocker" else radius
+        draw.rounded_rectangle([x - half, y - radius, x + half, y + radius], radius=corner, fill=fill,
+                               outline=(255, 255, 255), width=rim)
     draw.text((x, y), label, fill=(255, 255, 255), font=font, anchor="mm")
 
 
@@ -162,24 +215,42 @@ class _Camera:
 
 
 def cluster_vertices(vertices: np.ndarray, faces: np.ndarray, max_faces: int) -> tuple[np.ndarray, np.ndarray]:
-    """Return a coarser mesh by vertex clustering on a grid until at most ``max_faces`` remain.
+    """Return a coarser mesh by vertex clustering on a cubic grid, with at most ``max_faces`` faces.
 
-    Rossignac and Borrel's uniform clustering (1993): every vertex moves to the mean of its cell,
-    and faces that collapse are dropped. Good enough for a picture, never for a measurement.
+    Rossignac and Borrel's uniform clustering (1993): every vertex moves to the mean of its cell, and faces
+    that collapse (or repeat) are dropped; the cell grows until the count fits. Good enough for a picture
+    or the browser's view, never for a measurement.
     """
-    lo, span = vertices.min(axis=0), float(np.ptp(vertices, axis=0).max()) or 1.0
+    vertices = np.asarray(vertices, dtype=np.float64)
+    faces = np.asarray(faces, dtype=np.int64)
+    if len(faces) <= max_faces:
+        return vertices, faces
+    lo = vertices.min(axis=0)
+    span = float(np.ptp(vertices, axis=0).max()) or 1.0
     cells = 512
-    while len(faces) > max_faces and cells >= 16:
-        keys = np.floor((vertices - lo) / (span / cells)).astype(np.int64)
-        _, inverse = np.unique(keys, axis=0, return_inverse=True)
-        inverse = inverse.ravel()
-        counts = np.bincount(inverse)
-        merged = np.stack([np.bincount(inverse, vertices[:, i]) / counts for i in range(3)], axis=1)
-        new = inverse[faces]
-        keep = (new[:, 0] != new[:, 1]) & (new[:, 1] != new[:, 2]) & (new[:, 0] != new[:, 2])
-        vertices, faces = merged, np.unique(new[keep], axis=0)
-        lo, cells = vertices.min(axis=0), cells // 2
-    return vertices, faces
+    while True:
+        q = np.floor((vertices - lo) / (span / cells)).astype(np.int64)
+        side = cells + 2
+        # One int64 key per vertex and per face: much faster than unique rows.
+        _, cluster = np.unique((q[:, 0] * side + q[:, 1]) * side + q[:, 2], return_inverse=True)
+        cluster = cluster.reshape(-1)
+        merged = cluster[faces]
+        keep = (merged[:, 0] != merged[:, 1]) & (merged[:, 1] != merged[:, 2]) & (merged[:, 0] != merged[:, 2])
+        merged = merged[keep]
+        ordered = np.sort(merged, axis=1)
+        n = int(cluster.max()) + 1
+        if n ** 3 < 2 ** 62:
+            _, first = np.unique((ordered[:, 0] * n + ordered[:, 1]) * n + ordered[:, 2], return_index=True)
+        else:
+            _, first = np.unique(ordered, axis=0, return_index=True)
+        merged = merged[np.sort(first)]
+        if len(merged) <= max_faces or cells <= 8:
+            break
+        cells = int(cells * 0.7)
+    counts = np.bincount(cluster, minlength=n)
+    means = np.stack([np.bincount(cluster, vertices[:, i], minlength=n) for i in range(3)], axis=1) / counts[:, None]
+    used, remap = np.unique(merged, return_inverse=True)
+    return means[used], remap.reshape(-1, 3)
 
 
 def _shaded_faces(tris: np.ndarray, camera: _Camera) -> tuple[np.ndarray, np.ndarray]:
@@ -210,7 +281,7 @@ def _plate_lines(lo: np.ndarray, hi: np.ndarray) -> tuple[list[np.ndarray], floa
 
 
 def perspective_png(vertices_mm: np.ndarray, faces: np.ndarray, *, title: str, markers: tuple[Marker, ...] = (),
-                    max_px: int = 520, max_faces: int = 150_000, azimuth_deg: float = -35.0,
+                    max_px: int = 520, max_faces: int = 40_000, azimuth_deg: float = -35.0,
                     elevation_deg: float = 32.0) -> bytes:
     """Return a shaded perspective view of a mesh on its build plate, with numbered markers.
 

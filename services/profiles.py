@@ -85,6 +85,8 @@ class Material:
     """A printable (or machined reference) material: mechanical, cost and RF data.
 
     ``price`` is per ``price_unit`` ("kg" or "l") in ``currency``; ``rf`` is sorted by frequency.
+    ``band_ghz`` is the band the material is usually designed for (e.g. W band, 75-110 GHz): a check
+    given no frequency and no required band runs across it.
     """
 
     slug: str
@@ -100,11 +102,13 @@ class Material:
     sources: dict = field(default_factory=dict)
     notes: str = ""
     version: int = 1
+    band_ghz: tuple[float, float] | None = None
 
     def to_dict(self) -> dict:
         d = asdict(self)
         d["processes"] = list(self.processes)
         d["rf"] = [asdict(p) for p in self.rf]
+        d["band_ghz"] = list(self.band_ghz) if self.band_ghz else None
         return d
 
     @classmethod
@@ -113,6 +117,7 @@ class Material:
         d = _known_fields(cls, data, "material")
         d["processes"] = tuple(d.get("processes") or ())
         d["rf"] = tuple(sorted((RFPoint(**p) for p in d.get("rf") or ()), key=lambda p: p.freq_ghz))
+        d["band_ghz"] = _band(d.get("band_ghz"), d.get("slug"))
         material = cls(**d)
         _validate_material(material)
         return material
@@ -124,6 +129,21 @@ def _known_fields(cls, data: dict, what: str) -> dict:
     if unknown:
         raise UnusableInput("unknown_field", f"The {what} has unknown fields: {', '.join(unknown)}.")
     return dict(data)
+
+
+def _band(value, slug) -> tuple[float, float] | None:
+    """Return a band as (low, high) GHz, refusing anything but two increasing positive numbers."""
+    if not value:
+        return None
+    try:
+        lo, hi = (float(v) for v in value)
+    except (TypeError, ValueError):
+        raise UnusableInput("bad_material", f"Material {slug!r}: the band must be two frequencies in GHz, "
+                            "low then high, e.g. [75, 110].") from None
+    if not 0 < lo < hi:
+        raise UnusableInput("bad_material", f"Material {slug!r}: the band {lo:g}-{hi:g} GHz must have a positive "
+                            "low end below its high end.")
+    return lo, hi
 
 
 def _validate_profile(p: PrinterProfile) -> None:

@@ -5,29 +5,39 @@ bytes or parameters -> Part -> LayerStack -> findings, estimate, optics -> Repor
 
 from __future__ import annotations
 
-import time
-from collections.abc import Callable
-from dataclasses import dataclass, field
+import math
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass, field, replace
 from typing import TYPE_CHECKING
 
 from services import layers, pictures
-from services.findings import Finding, sorted_by_severity, verdict_of
+from services.alternatives import what_must_change
+from services.errors import UnusableInput
+from services.findings import NOT_PRINTABILITY, Finding, sorted_by_severity, verdict_of
 from services.part import Part
+from services.part_view import part_view_json
 from services.profiles import Material, PrinterProfile, check_pairing
 from services.rules import run_rules
 from services.rules.build_fit import check_build_fit
+from services.requirement_check import check_requirements
+from services.target_changes import changes_for_targets
 from services.safety import cautions_for
 from services.settings import CheckSettings
+from services.stages import Progress, Stages
+from services.units_physics import units_findings
 
 if TYPE_CHECKING:
     from services.estimate.calibration import Calibration
 
 SCHEMA = "phasewright.report/1"
+PART_VIEW_FILE = "part-view.json"
+# Files a stored report holds besides its pictures (the pictures are listed in its "figures").
+EXTRA_FILES = ("transmission.s2p", PART_VIEW_FILE)
 
 # Share of the progress bar each stage takes, in run order (slicing and optics dominate).
-STAGES = (("reading", 0.02), ("slicing", 0.30), ("rules", 0.30), ("estimate", 0.05), ("optics", 0.28), ("pictures", 0.05))
+STAGES = (("reading", 0.02), ("slicing", 0.28), ("rules", 0.28), ("estimate", 0.05), ("optics", 0.25), ("pictures", 0.05),
+          ("alternatives", 0.04), ("target_changes", 0.03))
 
-Progress = Callable[[str, float], None]
 
 
 @dataclass(frozen=True, slots=True)
@@ -48,6 +58,11 @@ class Report:
     timings_s: dict
     figures: dict = field(default_factory=dict)
     touchstone: str | None = None
+    meets_requirements: str = "not_stated"
+    requirements: dict | None = None
+    part_view: str | None = None  # the 3D view's JSON (services.part_view), stored as PART_VIEW_FILE
+    what_to_change: tuple = ()  # services.alternatives.Alternative, best first (empty when nothing blocks)
+    target_changes: tuple = ()  # services.target_changes.TargetChange, best first (empty when no target is missed)
 
     def to_dict(self) -> dict:
         return {
@@ -58,71 +73,169 @@ class Report:
             "settings": self.settings,
             "layers": self.layers,
             "verdict": self.verdict,
+            "meets_requirements": self.meets_requirements,
+            "requirements": self.requirements,
             "findings": [f.to_dict() for f in self.findings],
             "estimate": self.estimate,
             "optics": self.optics,
             "build": self.build,
             "cautions": list(self.cautions),
             "figures": sorted(self.figures),
+            "part_view": PART_VIEW_FILE if self.part_view else None,
+            "what_to_change": [a.to_dict() for a in self.what_to_change],
+            "target_changes": [c.to_dict() for c in self.target_changes],
             "timings_s": self.timings_s,
         }
 
 
-class _Stages:
-    """Turn per-stage fractions into one overall progress call, and time each stage."""
-
-    def __init__(self, progress: Progress | None) -> None:
-        self.progress = progress
-        self.timings_s: dict[str, float] = {}
-        self._start = dict.fromkeys((s for s, _ in STAGES), 0.0)
-        acc = 0.0
-        for name, share in STAGES:
-            self._start[name] = acc
-            acc += share
-        self._share = dict(STAGES)
-
-    def run(self, name: str, step: Callable[[Callable[[float], None]], object]):
-        """Run ``step(progress)`` as stage ``name`` and time it."""
-        t0 = time.perf_counter()
-        self.report(name, 0.0)
-        result = step(lambda fraction: self.report(name, fraction))
-        self.timings_s[name] = round(time.perf_counter() - t0, 3)
-        self.report(name, 1.0)
-        return result
-
-    def report(self, name: str, fraction: float) -> None:
-        if self.progress:
-            self.progress(name, min(1.0, self._start[name] + self._share[name] * max(0.0, min(1.0, fraction))))
-
-
 def build_report(*, part: Part, printer: PrinterProfile, material: Material,
                  settings: CheckSettings | None = None, progress: Progress | None = None,
-                 calibration: Calibration | None = None) -> Report:
+                 calibration: Calibration | None = None,
+                 alternatives: Sequence[tuple[PrinterProfile, Material]] | Callable[[], Sequence] = (),
+                 concurrent_stages: bool = True) -> Report:
     """Check a part on one printer and material and return the report.
 
     ``calibration`` is the printer's print-time correction from logged prints (None: uncalibrated).
+    ``alternatives`` are the lab's other (printer, material) pairs, tried when something blocks the print.
+    ``concurrent_stages`` runs rules and estimate in one thread beside optics in another (False: one after
+    the other, for debugging, or where memory is tight: side by side, both stages' working sets are held at once).
     """
     settings = settings or CheckSettings()
     check_pairing(printer, material)  # before the slicing, not after it
-    stages = _Stages(progress)
+    stages = Stages(STAGES, progress)
     oriented = stages.run("reading", lambda p: layers.orient_part(part, settings.orientation))
     stack = stages.run("slicing", lambda p: layers.build_layer_stack(
         oriented, pixel_mm=printer.pixel_mm, layer_height_mm=printer.layer_height_mm, progress=p))
     fit_findings, build = check_build_fit(oriented, printer)
-    rules = stages.run("rules", lambda p: run_rules(stack=stack, part=oriented, printer=printer, progress=p))
-    estimate = stages.run("estimate", lambda p: _estimate(stack, oriented, printer, material, settings, rules, calibration))
-    optics = stages.run("optics", lambda p: _optics(oriented, stack, printer, material, settings, p))
+    solid = _has_solid(stack)
+    rules, estimate, optics = _rules_estimate_optics(
+        stages, part=part, oriented=oriented, stack=stack, printer=printer, material=material, settings=settings,
+        calibration=calibration, concurrent=concurrent_stages and solid)
     figures = {**rules.figures, **(optics.figures if optics else {})}
-    findings = sorted_by_severity([*part.findings, *fit_findings, *rules.findings, *(optics.findings if optics else ())])
-    figures.update(stages.run("pictures", lambda p: _overview_pictures(stack, oriented, findings)))
+    targets = check_requirements(settings.requirements, optics=optics.to_dict() if optics else None,
+                                 bbox_mm=oriented.bbox_mm, printed_thickness_mm=stack.count * stack.layer_height_mm)
+    findings = sorted_by_severity([*part.findings, *_units_from_physics(part, printer, settings), *fit_findings,
+                                   *rules.findings, *(optics.findings if optics else ()),
+                                   *([] if solid else [_no_solid_note(part, printer)]), *targets.findings])
+    sections, blanked = finite_sections({"design": part.summary(), "layers": stack.summary(),
+                                         "estimate": estimate.to_dict() if estimate else None,
+                                         "optics": optics.to_dict() if optics else None,
+                                         "build": {**build, **rules.summary}})
+    findings = [*map(_finite_finding, findings), *_blanked_findings(part.name, blanked)]
+    overview, view = stages.run("pictures", lambda p: (_overview_pictures(stack, oriented, findings),
+                                                       part_view_json(oriented, stack, findings)))
+    figures.update(overview)
+    # The alternatives re-run the printability checks only, so only printability blockers go in.
+    printability = [f for f in findings if f.rule not in NOT_PRINTABILITY]
+    to_change = stages.run("alternatives", lambda p: what_must_change(
+        part=part, printer=printer, material=material, settings=settings, findings=printability,
+        catalogue=alternatives, progress=p))
+    to_meet = stages.run("target_changes", lambda p: changes_for_targets(
+        part=oriented, stack=stack, printer=printer, material=material, settings=settings, targets=targets,
+        run_optics=lambda part_, stack_, printer_, material_: _optics(
+            part_, stack_, printer_, material_, settings, with_figures=False).to_dict(),
+        catalogue=alternatives, progress=p))
     return Report(
-        design=part.summary(), printer=printer.to_dict(), material=material.to_dict(),
-        settings=settings.to_dict(), layers=stack.summary(), verdict=verdict_of(findings),
-        findings=tuple(findings), estimate=estimate.to_dict() if estimate else None,
-        optics=optics.to_dict() if optics else None, build={**build, **rules.summary},
+        design=sections["design"], printer=printer.to_dict(), material=material.to_dict(),
+        settings=settings.to_dict(), layers=sections["layers"], verdict=verdict_of(findings),
+        findings=tuple(findings), estimate=sections["estimate"], optics=sections["optics"], build=sections["build"],
         cautions=tuple(cautions_for(printer.process)), timings_s=stages.timings_s,
-        figures=figures, touchstone=optics.touchstone if optics else None,
+        figures=figures, touchstone=optics.touchstone if optics else None, part_view=view,
+        meets_requirements=targets.meets, requirements=targets.to_dict() if settings.requirements else None,
+        what_to_change=tuple(to_change), target_changes=tuple(to_meet),
     )
+
+
+def _rules_estimate_optics(stages: Stages, *, part, oriented, stack, printer, material, settings, calibration,
+                           concurrent: bool):
+    """Return (rules, estimate, optics): rules then estimate (it needs their support volume), optics beside them.
+
+    Both branches only read the stack and the part. Whether run side by side or in order, the
+    outcome is the same, errors included (see Stages.side_by_side).
+    """
+    solid = _has_solid(stack)
+
+    def printability():
+        rules = stages.run("rules", lambda p: run_rules(stack=stack, part=oriented, printer=printer, progress=p))
+        _solid_or_refuse(stack, part, printer)
+        return rules, stages.run("estimate", lambda p: _estimate(stack, oriented, printer, material, settings, rules,
+                                                                 calibration) if solid else None)
+
+    def optics():
+        return stages.run("optics", lambda p: _optics(oriented, stack, printer, material, settings, p) if solid else None)
+
+    (rules, estimate), seen = stages.side_by_side(printability, optics) if concurrent else (printability(), optics())
+    return rules, estimate, seen
+
+
+def finite_sections(sections: dict) -> tuple[dict, list[str]]:
+    """Return the sections with every NaN or infinite number replaced by None, and where each was.
+
+    JSON has no NaN (PostgreSQL's jsonb refuses it) and a reader cannot act on one: a value that
+    could not be computed is left blank and named instead.
+    """
+    blanked: list[str] = []
+
+    def clean(value, path: str):
+        if isinstance(value, float) and not math.isfinite(value):
+            blanked.append(path)
+            return None
+        if isinstance(value, dict):
+            return {k: clean(v, f"{path}.{k}" if path else str(k)) for k, v in value.items()}
+        if isinstance(value, (list, tuple)):
+            return [clean(v, f"{path}[{i}]") for i, v in enumerate(value)]
+        return value
+
+    return clean(sections, ""), blanked
+
+
+def _finite_finding(finding: Finding) -> Finding:
+    """Return the finding with a non-finite measured value or limit left blank."""
+    bad = [key for key in ("measured", "limit") if not math.isfinite(getattr(finding, key) or 0.0)]
+    return replace(finding, **dict.fromkeys(bad)) if bad else finding
+
+
+def _blanked_findings(name: str, blanked: list[str]) -> list[Finding]:
+    """Return a note naming the values that could not be computed, if any."""
+    if not blanked:
+        return []
+    shown = ", ".join(blanked[:5]) + (f" and {len(blanked) - 5:,} more" if len(blanked) > 5 else "")
+    return [Finding("not_computed", "note", f"{name}: {len(blanked):,} values could not be computed and are left "
+                    f"blank ({shown}); the rest of the report stands.", count=len(blanked))]
+
+
+def _has_solid(stack) -> bool:
+    return bool(stack.count) and bool((stack.area_mm2 > 0).any())
+
+
+def _solid_or_refuse(stack, part: Part, printer: PrinterProfile) -> bool:
+    """Return True when the layer stack holds solid; without it, refuse unless intake already blocked the part.
+
+    An open surface (one triangle, a sheet) slices to nothing; its blocker says what to fix, so the
+    report stands without an estimate rather than the check failing with "empty part".
+    """
+    if _has_solid(stack):
+        return True
+    if any(f.severity == "blocker" for f in part.findings):
+        return False
+    raise UnusableInput("empty_part", f"{part.name}: the part has no solid at this printer's "
+                        f"{printer.pixel_mm:g} mm pixel and {printer.layer_height_mm:g} mm layers; check the units "
+                        "and the part's size.")
+
+
+def _no_solid_note(part: Part, printer: PrinterProfile) -> Finding:
+    return Finding("not_computed", "note", f"{part.name}: no estimate and no optics: the part encloses no solid at "
+                   f"this printer's {printer.pixel_mm:g} mm pixel and {printer.layer_height_mm:g} mm layers; fix the "
+                   "blockers above first.")
+
+
+def _units_from_physics(part: Part, printer: PrinterProfile, settings: CheckSettings) -> list[Finding]:
+    """Return a units caution when the part's size makes no sense at its design frequency."""
+    freqs = settings.effective_optics().freqs_ghz
+    if not freqs and (part.parameters or {}).get("freq_ghz"):
+        freqs = (float(part.parameters["freq_ghz"]),)
+    return units_findings(extent_mm=max(part.bbox_mm), unit=part.units, freqs_ghz=freqs,
+                          build_volume_mm=printer.build_volume_mm)
 
 
 def _estimate(stack, part, printer, material, settings, rules, calibration=None):
@@ -133,11 +246,11 @@ def _estimate(stack, part, printer, material, settings, rules, calibration=None)
                           quantities=settings.quantities, support_volume_mm3=support, calibration=calibration)
 
 
-def _optics(part, stack, printer, material, settings, progress=None):
+def _optics(part, stack, printer, material, settings, progress=None, with_figures=True):
     from services.optics import optics_report
 
     return optics_report(part=part, printed=stack, material=material, printer=printer,
-                         settings=settings.optics, progress=progress)
+                         settings=settings.effective_optics(), progress=progress, with_figures=with_figures)
 
 
 def _overview_pictures(stack, part: Part, findings: list[Finding]) -> dict[str, bytes]:

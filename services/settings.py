@@ -2,9 +2,10 @@
 
 from __future__ import annotations
 
-from dataclasses import asdict, dataclass, field
+from dataclasses import asdict, dataclass, field, replace
 
 from services.errors import UnusableInput
+from services.requirements import Requirements
 
 ORIENTATIONS = ("+z", "-z", "+x", "-x", "+y", "-y")
 
@@ -16,6 +17,7 @@ class OpticsSettings:
     Exactly one of ``edge_taper_db`` and ``beam_waist_mm`` sets the Gaussian illumination;
     with neither, a 10 dB edge taper at the part's rim is used (common practice).
     ``focal_length_mm`` is measured from the part's far extreme along the optical axis.
+    ``clear_aperture_mm`` is the optical zone's diameter about the axis (else the generator's or detected).
     """
 
     freqs_ghz: tuple[float, ...] = ()
@@ -23,6 +25,7 @@ class OpticsSettings:
     edge_taper_db: float | None = None
     beam_waist_mm: float | None = None
     phase_error_blocker_strehl: float = 0.5
+    clear_aperture_mm: float | None = None
 
     def __post_init__(self) -> None:
         if any(f <= 0 or f > 10_000 for f in self.freqs_ghz):
@@ -35,6 +38,8 @@ class OpticsSettings:
             raise UnusableInput("bad_illumination", "The edge taper must lie between 0 and 60 dB.")
         if self.beam_waist_mm is not None and self.beam_waist_mm <= 0:
             raise UnusableInput("bad_illumination", "The beam waist must be positive.")
+        if self.clear_aperture_mm is not None and self.clear_aperture_mm <= 0:
+            raise UnusableInput("bad_clear_aperture", "The clear aperture diameter must be positive.")
 
     def to_dict(self) -> dict:
         d = asdict(self)
@@ -44,11 +49,12 @@ class OpticsSettings:
 
 @dataclass(frozen=True, slots=True)
 class CheckSettings:
-    """Build orientation, quantities to quote and optics settings for one check."""
+    """Build orientation, quantities to quote, optics settings and the designer's requirements for one check."""
 
     orientation: str = "+z"
     quantities: tuple[int, ...] = (1, 5, 10, 25)
     optics: OpticsSettings = field(default_factory=OpticsSettings)
+    requirements: Requirements | None = None
 
     def __post_init__(self) -> None:
         if self.orientation not in ORIENTATIONS:
@@ -57,7 +63,19 @@ class CheckSettings:
             raise UnusableInput("bad_quantity", "Quantities must be whole numbers from 1 to 100,000.")
 
     def to_dict(self) -> dict:
-        return {"orientation": self.orientation, "quantities": list(self.quantities), "optics": self.optics.to_dict()}
+        d = {"orientation": self.orientation, "quantities": list(self.quantities), "optics": self.optics.to_dict()}
+        if self.requirements is not None:  # absent, not null: settings stored before requirements compare equal
+            d["requirements"] = self.requirements.to_dict()
+        return d
+
+    def effective_optics(self) -> OpticsSettings:
+        """Return the optics settings with the requirements' band and focal length filling what is empty."""
+        req, optics = self.requirements, self.optics
+        if req is None:
+            return optics
+        freqs = optics.freqs_ghz or req.band_freqs_ghz()
+        focal = optics.focal_length_mm if optics.focal_length_mm is not None else req.focal_length_mm
+        return replace(optics, freqs_ghz=tuple(freqs), focal_length_mm=focal)
 
     @classmethod
     def from_dict(cls, data: dict | None) -> CheckSettings:
@@ -68,4 +86,5 @@ class CheckSettings:
             orientation=data.get("orientation", "+z"),
             quantities=tuple(int(q) for q in data.get("quantities", (1, 5, 10, 25))),
             optics=OpticsSettings(**optics),
+            requirements=Requirements.from_dict(data["requirements"]) if data.get("requirements") else None,
         )

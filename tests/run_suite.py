@@ -34,7 +34,10 @@ def main() -> int:
         first = pytest(extra, {**env, "DATABASE_URL": PG_URL})
         print("== database tests again on SQLite", flush=True)
         second = pytest(["tests/webapp", "-m", "not slow and not e2e", *extra], env)
-        return first or second
+        # make run's shape (folder broker and SQLite) is killed 20 times in its own pass; the Redis shape ran above.
+        print("== killed workers, make run's shape (SQLite)", flush=True)
+        third = pytest(["tests/reliability/test_killed_workers.py", "-k", "embedded", *extra], env)
+        return first or second or third
     print("== full suite on SQLite (no PostgreSQL on 127.0.0.1:5432)", flush=True)
     return pytest(extra, env)
 

@@ -3,16 +3,19 @@
 import importlib
 import logging
 import os
-import resource
 
 from celery import Celery
-from celery.signals import worker_process_init
+from celery.signals import task_received, worker_process_init, worker_ready, worker_shutdown
+
+from services import limits
+from webapp.checks import queue
 
 os.environ.setdefault("DJANGO_SETTINGS_MODULE", "webapp.settings")
 
 app = Celery("phasewright")
 app.config_from_object("django.conf:settings", namespace="CELERY")
 app.autodiscover_tasks(["webapp.checks"])
+queue.use_app(app)  # the checks' service sends through this app by the task's name
 
 
 def _make_broker_folders() -> None:
@@ -26,17 +29,10 @@ def _make_broker_folders() -> None:
 _make_broker_folders()
 
 
-# Imported by each child before it takes work, so their code is not counted against a check's memory.
-PIPELINE_MODULES = ("webapp.checks.services", "services.report", "matplotlib.pyplot", "cv2")
-
-
-def _address_space_bytes() -> int:
-    """Return this process's mapped address space (VmSize), the quantity RLIMIT_AS bounds."""
-    with open("/proc/self/status") as fh:
-        for line in fh:
-            if line.startswith("VmSize:"):
-                return int(line.split()[1]) * 1024
-    raise OSError("no VmSize in /proc/self/status")
+# Imported by each child before it takes work, so their code is not counted against a check's memory
+# (the optics and the Agg renderer too: with rules beside them, a library mapped under the bound could fail to load).
+PIPELINE_MODULES = ("webapp.checks.services", "services.report", "services.optics", "matplotlib.pyplot",
+                    "matplotlib.backends.backend_agg", "cv2")
 
 
 @worker_process_init.connect
@@ -47,12 +43,37 @@ def bound_child_memory(**_) -> None:
     """
     from django.conf import settings
 
-    headroom_mib = settings.PHASEWRIGHT_CHECK_MEMORY_MIB
-    if headroom_mib <= 0:
+    if settings.PHASEWRIGHT_CHECK_MEMORY_MIB <= 0:
         return
     for name in PIPELINE_MODULES:
         importlib.import_module(name)
-    limit = _address_space_bytes() + headroom_mib * 2**20
-    _, hard = resource.getrlimit(resource.RLIMIT_AS)
-    resource.setrlimit(resource.RLIMIT_AS, (limit if hard == resource.RLIM_INFINITY else min(limit, hard), hard))
+    if settings.PHASEWRIGHT_CONCURRENT_STAGES:
+        from services.stages import prepare_threads
+
+        prepare_threads()  # the stage threads' stacks and arenas, mapped once per child and reused by every check
+    limit = limits.cap_memory(settings.PHASEWRIGHT_CHECK_MEMORY_MIB)
     logging.getLogger(__name__).info("worker child %s: address space capped at %.0f MiB", os.getpid(), limit / 2**20)
+
+
+@worker_ready.connect
+def start_heartbeat(**_) -> None:
+    """Stamp the checks this worker holds, from its main process, for as long as it lives."""
+    from django.conf import settings
+
+    from webapp.checks.heartbeat import HEARTBEAT
+
+    HEARTBEAT.start(settings.PHASEWRIGHT_HEARTBEAT_S, hold_taken_s=settings.PHASEWRIGHT_STALE_AFTER_S)
+
+
+@worker_shutdown.connect
+def stop_heartbeat(**_) -> None:
+    from webapp.checks.heartbeat import HEARTBEAT
+
+    HEARTBEAT.stop()
+
+
+@task_received.connect
+def hold_received_check(request=None, **_) -> None:
+    from webapp.checks.heartbeat import on_task_received
+
+    on_task_received(request)

@@ -7,6 +7,8 @@ second layer, for a site reached without the proxy. The exact per-file check sta
 from django.conf import settings
 from django.http import HttpResponse
 
+from services.sizes import over_limit_text
+
 
 class RequestSizeLimitMiddleware:
     """Answer 413 with a sentence when Content-Length is over PHASEWRIGHT_MAX_REQUEST_BYTES."""
@@ -22,7 +24,7 @@ class RequestSizeLimitMiddleware:
                                 content_type="text/plain; charset=utf-8")
         limit = settings.PHASEWRIGHT_MAX_REQUEST_BYTES
         if length > limit:
-            return HttpResponse(f"The upload is {length / 2**20:,.0f} MiB, over the {limit / 2**20:,.0f} MiB limit; "
+            return HttpResponse(f"The upload is {over_limit_text(length, limit)}; "
                                 "simplify the mesh or export it as binary STL.\n", status=413,
                                 content_type="text/plain; charset=utf-8")
         return self.get_response(request)

@@ -10,6 +10,8 @@ from pathlib import Path
 import dj_database_url
 from django.core.exceptions import ImproperlyConfigured
 
+from services import limits
+
 BASE_DIR = Path(__file__).resolve().parent.parent
 
 
@@ -151,6 +153,10 @@ STATIC_ROOT.mkdir(exist_ok=True)
 # STATIC_ROOT or any URL: downloads go through a view that checks the owner.
 STORAGE_KIND = envchoice("PHASEWRIGHT_STORAGE", "local", ("local", "s3"))
 STORAGE_DIR = Path(envstr("PHASEWRIGHT_STORAGE_DIR", str(VAR_DIR / "private")))
+# Rigorous cell tables (services.optics.cell_tables) are cached here; web and worker must share it. The
+# domain core reads the environment variable, so the setting is written back to it.
+CELL_TABLE_DIR = Path(envstr("PHASEWRIGHT_CELL_TABLE_DIR", str(VAR_DIR / "cell-tables")))
+os.environ["PHASEWRIGHT_CELL_TABLE_DIR"] = str(CELL_TABLE_DIR)
 # A rerun of a check rewrites its report files under the same names (allow_overwrite, file_overwrite).
 _LOCAL_STORAGE = {"BACKEND": "django.core.files.storage.FileSystemStorage",
                   "OPTIONS": {"location": str(STORAGE_DIR), "allow_overwrite": True,
@@ -175,6 +181,8 @@ PHASEWRIGHT_MAX_UPLOAD_BYTES = envint("PHASEWRIGHT_MAX_UPLOAD_BYTES", str(200 * 
 PHASEWRIGHT_MAX_TRIANGLES = envint("PHASEWRIGHT_MAX_TRIANGLES", "5000000")
 PHASEWRIGHT_MAX_EXTENT_MM = envint("PHASEWRIGHT_MAX_EXTENT_MM", "2000")
 PHASEWRIGHT_MAX_ACTIVE_CHECKS = envint("PHASEWRIGHT_MAX_ACTIVE_CHECKS", "20")
+# What one user's stored designs may add up to; an upload past it is refused with a sentence.
+PHASEWRIGHT_STORAGE_QUOTA_BYTES = envint("PHASEWRIGHT_STORAGE_QUOTA_BYTES", str(2 * 2**30))
 DATA_UPLOAD_MAX_NUMBER_FILES = 100
 FILE_UPLOAD_MAX_MEMORY_SIZE = 5 * 2**20
 # A whole request may carry one upload plus its form fields; the proxy's client_max_body_size is the same.
@@ -206,8 +214,8 @@ CELERY_BROKER_TRANSPORT_OPTIONS = {"visibility_timeout": VISIBILITY_TIMEOUT_S} i
 CELERY_TASK_ACKS_LATE = True
 CELERY_TASK_REJECT_ON_WORKER_LOST = True
 CELERY_WORKER_PREFETCH_MULTIPLIER = 1
-CELERY_TASK_SOFT_TIME_LIMIT = envint("PHASEWRIGHT_CHECK_SOFT_LIMIT_S", "600")
-CELERY_TASK_TIME_LIMIT = envint("PHASEWRIGHT_CHECK_HARD_LIMIT_S", "660")
+CELERY_TASK_SOFT_TIME_LIMIT = envint("PHASEWRIGHT_CHECK_SOFT_LIMIT_S", str(limits.DEFAULT_TIME_LIMIT_S))
+CELERY_TASK_TIME_LIMIT = envint("PHASEWRIGHT_CHECK_HARD_LIMIT_S", str(limits.DEFAULT_TIME_LIMIT_S + 60))
 CELERY_WORKER_MAX_TASKS_PER_CHILD = 50
 CELERY_WORKER_MAX_MEMORY_PER_CHILD = envint("PHASEWRIGHT_WORKER_MAX_MEMORY_KIB", "3000000")
 CELERY_TASK_IGNORE_RESULT = True
@@ -215,9 +223,28 @@ CELERY_BROKER_CONNECTION_RETRY_ON_STARTUP = True
 # A child imports the pipeline before it takes work (webapp/celery.py); allow for a busy machine.
 CELERY_WORKER_PROC_ALIVE_TIMEOUT = 60.0
 PHASEWRIGHT_MAX_ATTEMPTS = 3
+# A worker's main process stamps the checks it holds every HEARTBEAT_S (webapp/checks/heartbeat.py); a check
+# silent for STALE_AFTER_S lost its worker, and the sweeper (inside `manage.py serve`, or
+# `requeue_stale_checks --every-s` in production) requeues it within SWEEP_EVERY_S more.
+PHASEWRIGHT_HEARTBEAT_S = envint("PHASEWRIGHT_HEARTBEAT_S", "10")
+PHASEWRIGHT_STALE_AFTER_S = envint("PHASEWRIGHT_STALE_AFTER_S", "45")
+PHASEWRIGHT_SWEEP_EVERY_S = envint("PHASEWRIGHT_SWEEP_EVERY_S", "15")
+if not 0 < 3 * PHASEWRIGHT_HEARTBEAT_S <= PHASEWRIGHT_STALE_AFTER_S:
+    # Three missed beats before a live worker's check counts as lost: a busy database may delay one or two.
+    raise ImproperlyConfigured("PHASEWRIGHT_STALE_AFTER_S must be at least 3 x PHASEWRIGHT_HEARTBEAT_S (and both above 0).")
+if PHASEWRIGHT_SWEEP_EVERY_S <= 0:
+    raise ImproperlyConfigured("PHASEWRIGHT_SWEEP_EVERY_S must be above 0.")
 # Address space one check may add to its worker child (RLIMIT_AS above what the child holds once the
 # pipeline is imported); past it an allocation fails and the check ends with a sentence. 0: no bound.
-PHASEWRIGHT_CHECK_MEMORY_MIB = envint("PHASEWRIGHT_CHECK_MEMORY_MIB", "4096")
+PHASEWRIGHT_CHECK_MEMORY_MIB = envint("PHASEWRIGHT_CHECK_MEMORY_MIB", str(limits.DEFAULT_MEMORY_MIB))
+# Rules (and the estimate) in one thread beside optics in another; False runs them one after the other,
+# for debugging or a memory-tight worker (side by side, a check holds both stages' working sets at once).
+PHASEWRIGHT_CONCURRENT_STAGES = envbool("PHASEWRIGHT_CONCURRENT_STAGES", "True")
+# Checks `manage.py serve` (make run) runs at once: its worker's pool processes, each with the memory bound
+# above. Production sets the pool size on its workers' command line instead (deploy/systemd).
+PHASEWRIGHT_SERVE_CHECKS_AT_ONCE = envint("PHASEWRIGHT_SERVE_CHECKS_AT_ONCE", str(min(2, os.cpu_count() or 1)))
+if PHASEWRIGHT_SERVE_CHECKS_AT_ONCE < 1:
+    raise ImproperlyConfigured("PHASEWRIGHT_SERVE_CHECKS_AT_ONCE must be 1 or more.")
 if CELERY_TASK_SOFT_TIME_LIMIT >= CELERY_TASK_TIME_LIMIT:
     # Celery arms the hard limit only once the soft one has fired: a soft limit at or above it disables both.
     raise ImproperlyConfigured("PHASEWRIGHT_CHECK_SOFT_LIMIT_S must be below PHASEWRIGHT_CHECK_HARD_LIMIT_S.")

@@ -20,7 +20,8 @@ class CellLayout:
     x_mm, y_mm : (k,) cell centres; diameter_mm : (k,) pillar or hole diameter (0: no pillar, or
     no hole); fill : (k,) material fraction of the cell; target_rad / achieved_rad : (k,) phase
     delay wanted and given by the cell model, wrapped to [0, 2 pi); clipped : (k,) True where the
-    printer's limits moved the cell away from its ideal size.
+    printer's limits moved the cell away from its ideal size; designed_by : (k,) the model that gave
+    the cell's delay ("rigorous_table", "effective_medium", or "uniform" for no pillar or no hole).
     """
 
     x_mm: np.ndarray
@@ -30,6 +31,7 @@ class CellLayout:
     target_rad: np.ndarray
     achieved_rad: np.ndarray
     clipped: np.ndarray
+    designed_by: np.ndarray
 
     @property
     def phase_error_rad(self) -> np.ndarray:
@@ -71,6 +73,16 @@ class Context:
         if self.params.get("build_volumes_mm"):
             return self.params["build_volumes_mm"]
         return [tuple(self.printer.build_volume_mm)] if self.printer is not None else None
+
+
+def smallest_printable_mm(printer: PrinterProfile | None) -> float:
+    """Return the narrowest wall or gap a generator may make on this printer: the larger of its minimum
+    (supported) feature and its minimum XY gap, plus one pixel for the rasterising (0 without a printer)."""
+    if printer is None:
+        return 0.0
+    feature = (printer.rule("min_feature") or {}).get("supported_mm") or 0.0
+    gap = (printer.rule("min_gap") or {}).get("xy_mm") or 0.0
+    return max(feature, gap) + printer.pixel_mm
 
 
 def wrap_pi(phase_rad):

@@ -41,12 +41,8 @@ class Medium:
 
 
 def medium_at(material: Material, freq_ghz: float) -> Medium:
-    """Return the material at a frequency inside its RF table, interpolated as the optics section does."""
+    """Return the material at a frequency, interpolated (or extrapolated near the data) as the optics section does."""
     values = rf_values(material, [freq_ghz])
-    if values.outside[0]:
-        lo, hi = values.table_range_ghz
-        raise UnusableInput("frequency_outside_data", f"{freq_ghz:g} GHz lies outside the permittivity data of "
-                            f"{material.name} ({lo:g} to {hi:g} GHz); choose a frequency inside it or add data.")
     eps = float(values.eps_r[0])
     if eps <= 1.0:
         raise UnusableInput("bad_material", f"{material.name} has a permittivity of {eps:g} at {freq_ghz:g} GHz; "

@@ -10,7 +10,7 @@ from dataclasses import replace
 
 import numpy as np
 
-from services.components.base import Component, Context, finish
+from services.components.base import Component, Context, finish, smallest_printable_mm
 from services.components.formulas import Medium, check_f_number, medium_at, path_radius_mm
 from services.components.lens import with_flange
 from services.components.solid import (
@@ -29,7 +29,7 @@ def build_multilevel(ctx: Context) -> Component:
     if p["profile"] == "lens":
         check_f_number(p["focal_length_mm"], p["diameter_mm"], "phase plate")
         check_fits((width, width, height), ctx.volumes, "phase plate")
-        solid, derived = _lens(p, medium)
+        solid, derived = _lens(p, medium, smallest_printable_mm(ctx.printer))
         ctx = replace(ctx, params={**p, "deflection_deg": None})
     else:
         check_fits((width, width, height), ctx.volumes, "phase plate")
@@ -44,14 +44,15 @@ def build_multilevel(ctx: Context) -> Component:
     return finish(ctx, solid, medium, derived, focal_length_mm=ctx.params["focal_length_mm"])
 
 
-def _lens(p: dict, medium: Medium):
-    """Return the revolved N-level lens and its ring radii."""
+def _lens(p: dict, medium: Medium, smallest_mm: float = 0.0):
+    """Return the revolved N-level lens and its ring radii; rings narrower than ``smallest_mm`` are merged."""
     radius, f, levels = p["diameter_mm"] / 2, p["focal_length_mm"], p["levels"]
     lam, step = medium.wavelength_mm, medium.full_wave_step_mm / levels
     # Ring j spans paths [j, j + 1) lambda / N; its level counts down from N - 1 at each zone's start.
     count = int(np.floor((np.hypot(radius, f) - f) / (lam / levels))) + 1
     edges = np.minimum(path_radius_mm(np.arange(count + 1) * lam / levels, f), radius)
     heights = p["base_thickness_mm"] + (levels - 1 - np.arange(count) % levels) * step
+    edges, heights, merged = printable_rings(edges, heights, smallest_mm)
     r = np.repeat(edges[::-1], 2)[1:-1]
     z = np.repeat(heights[::-1], 2)
     keep = np.r_[True, (np.diff(r) != 0) | (np.diff(z) != 0)]
@@ -59,8 +60,32 @@ def _lens(p: dict, medium: Medium):
     solid = revolve_profile(r, z, segments_for(r[0]), "phase plate")
     rings = [float(v) for v in edges[1:] if v < radius]
     derived = {"ring_radii_mm": rings, "zone_radii_mm": rings[levels - 1::levels],
-               "focus_height_mm": float(z[-1]) + f}
+               "focus_height_mm": float(z[-1]) + f, "rings_merged_for_printer": merged}
     return solid, derived
+
+
+def printable_rings(edges: np.ndarray, heights: np.ndarray, smallest_mm: float) -> tuple[np.ndarray, np.ndarray, int]:
+    """Return (edges, heights, merged): rings narrower than the printer's smallest wall or gap joined to the ring
+    inside them, which keeps its height.
+
+    A ring's level differs from its inner neighbour's by one step (modulo a full wave, also across a zone
+    boundary), so a joined ring's phase is off by one step, 2 pi / N, over its width: the printer could
+    not have made it anyway (a ridge below the minimum feature or a groove below the minimum gap).
+    """
+    if smallest_mm <= 0:
+        return edges, heights, 0
+    keep_edges, keep_heights = [edges[0]], []
+    for k in range(len(heights)):
+        if keep_heights and edges[k + 1] - keep_edges[-1] < smallest_mm:
+            keep_edges[-1] = edges[k + 1]  # this ring joins the one inside it
+            continue
+        keep_edges.append(edges[k + 1])
+        keep_heights.append(heights[k])
+    # Join a narrow last ring too (its width was measured before the merge above could widen it).
+    while len(keep_heights) > 1 and keep_edges[-1] - keep_edges[-2] < smallest_mm:
+        keep_edges.pop(-2)
+        keep_heights.pop()
+    return np.asarray(keep_edges), np.asarray(keep_heights), len(heights) - len(keep_heights)
 
 
 def _deflector(p: dict, medium: Medium):

@@ -32,6 +32,11 @@ class ParamSpec:
     min: float | None = None
     max: float | None = None
     min_exclusive: bool = False
+
+    @property
+    def spoken(self) -> str:
+        """Return the parameter's name in words, as the messages and forms say it ("The base thickness")."""
+        return spoken_name(self.name)
     choices: tuple[str, ...] = ()
 
     def to_dict(self) -> dict:
@@ -83,13 +88,16 @@ _SPECS: dict[str, tuple[ParamSpec, ...]] = {
     "graded-index": (
         _size("diameter_mm", 30.0, "aperture diameter of the plate"),
         _size("focal_length_mm", 30.0, "distance from the plate's top to the focus (f/D at least 0.5)"),
-        _freq("freq_ghz", 300.0, "design frequency; the phase map is designed here"),
+        # Defaults the starter resin printers can make: at 300 GHz no starter printer makes cells fine enough.
+        _freq("freq_ghz", 100.0, "design frequency; the phase map is designed here"),
         _freq("max_freq_ghz", None, "highest frequency of use, which sets the largest period (default: the design frequency)"),
         ParamSpec("lattice", "", "square", "arrangement of the cells", type="choice", choices=("square", "hex")),
-        ParamSpec("cell", "", "pillar", "pillars standing on a base, or blind holes in a slab",
+        ParamSpec("cell", "", "hole", "pillars standing on a base, or blind holes in a slab",
                   type="choice", choices=("pillar", "hole")),
-        _size("period_mm", None, "cell period (default: the largest that keeps every diffraction order evanescent)"),
-        _size("height_mm", None, "pillar height or hole depth (default: enough for a full 2 pi of phase)"),
+        _size("period_mm", None, "cell period (default: p n / lambda = 0.5 at the highest frequency, where the cell "
+              "models are accurate, if the printer can make cells that fine; at most the diffraction limit)"),
+        _size("height_mm", None, "pillar height or hole depth (default: enough for a full 2 pi of phase, by the "
+              "rigorous cell table the check uses)"),
         _size("base_thickness_mm", 1.0, "solid base under the pillars or under the holes (holes: 0 cuts them through)",
               positive=False),
         _size("flange_width_mm", 1.0, "solid rim of the base outside the aperture", positive=False),
@@ -138,6 +146,24 @@ def resolve_parameters(kind: str, params: dict) -> dict:
     return resolved
 
 
+_UNIT_SUFFIXES = ("_mm", "_ghz", "_deg", "_db", "_rad")
+_WORDS = {"freq": "frequency", "num": "number of", "n": "number of", "levels": "number of levels"}
+_EXTREMES = {"max": "maximum", "min": "minimum"}
+_FREQ_EXTREMES = {"max": "highest", "min": "lowest"}  # a band has a highest frequency, not a maximum one
+
+
+def spoken_name(name: str) -> str:
+    """Return a parameter name in words: "base_thickness_mm" -> "The base thickness"."""
+    for suffix in _UNIT_SUFFIXES:
+        if name.endswith(suffix):
+            name = name[: -len(suffix)]
+            break
+    parts = name.split("_")
+    extremes = [(_FREQ_EXTREMES if "freq" in parts else _EXTREMES)[w] for w in parts if w in _EXTREMES]
+    words = " ".join([*extremes, *(_WORDS.get(w, w) for w in parts if w not in _EXTREMES)])
+    return "The " + words
+
+
 def _specs_of(kind: str) -> tuple[ParamSpec, ...]:
     if kind not in _SPECS:
         raise UnusableInput("unknown_kind", f"There is no component kind {kind!r}; choose one of {', '.join(KINDS)}.")
@@ -151,7 +177,7 @@ def _value(spec: ParamSpec, raw):
         raw = spec.default
     if spec.type == "choice":
         if raw not in spec.choices:
-            raise UnusableInput("bad_parameter", f"{spec.name} must be one of {', '.join(spec.choices)}, not {raw!r}.")
+            raise UnusableInput("bad_parameter", f"{spec.spoken} must be one of {', '.join(spec.choices)}, not {raw!r}.")
         return raw
     value = _number(spec, raw)
     _check_range(spec, value)
@@ -162,12 +188,12 @@ def _number(spec: ParamSpec, raw) -> float | int:
     try:
         value = float(raw)
     except (TypeError, ValueError):
-        raise UnusableInput("bad_parameter", f"{spec.name} must be a number, not {raw!r}.") from None
+        raise UnusableInput("bad_parameter", f"{spec.spoken} must be a number, not {raw!r}.") from None
     if not math.isfinite(value):
-        raise UnusableInput("bad_parameter", f"{spec.name} must be a finite number.")
+        raise UnusableInput("bad_parameter", f"{spec.spoken} must be a finite number.")
     if spec.type == "int":
         if value != int(value) or isinstance(raw, bool):
-            raise UnusableInput("bad_parameter", f"{spec.name} must be a whole number, not {raw!r}.")
+            raise UnusableInput("bad_parameter", f"{spec.spoken} must be a whole number, not {raw!r}.")
         return int(value)
     return value
 
@@ -176,16 +202,16 @@ def _check_range(spec: ParamSpec, value: float) -> None:
     unit = f" {spec.unit}" if spec.unit else ""
     if spec.min is not None and (value < spec.min or (spec.min_exclusive and value <= spec.min)):
         word = "greater than" if spec.min_exclusive else "at least"
-        raise UnusableInput("bad_parameter", f"{spec.name} must be {word} {spec.min:g}{unit}; got {value:g}{unit}.")
+        raise UnusableInput("bad_parameter", f"{spec.spoken} must be {word} {spec.min:g}{unit}; got {value:g}{unit}.")
     if spec.max is not None and value > spec.max:
-        raise UnusableInput("bad_parameter", f"{spec.name} must be at most {spec.max:g}{unit}; got {value:g}{unit}.")
+        raise UnusableInput("bad_parameter", f"{spec.spoken} must be at most {spec.max:g}{unit}; got {value:g}{unit}.")
 
 
 def _volumes(raw) -> list[tuple[float, float, float]]:
     try:
         volumes = [tuple(float(v) for v in box) for box in raw]
     except (TypeError, ValueError):
-        raise UnusableInput("bad_parameter", "build_volumes_mm must be a list of (x, y, z) sizes in mm.") from None
+        raise UnusableInput("bad_parameter", "The build volumes must be a list of (x, y, z) sizes in mm.") from None
     if any(len(box) != 3 or min(box) <= 0 for box in volumes):
         raise UnusableInput("bad_parameter", "Every build volume needs three positive sizes in mm.")
     return volumes

@@ -11,10 +11,10 @@ import math
 import manifold3d as m3d
 import numpy as np
 
-from services.components.base import Component, Context, finish
+from services.components.base import Component, Context, finish, smallest_printable_mm
 from services.components.formulas import medium_at
 from services.components.multilevel import add_flange_ring
-from services.components.solid import CHORD_TOL_MM, check_fits, checked, from_arrays, segments_for
+from services.components.solid import CHORD_TOL_MM, check_fits, checked, disc, from_arrays, segments_for, union
 from services.errors import UnusableInput
 
 # Each step's wall leans by this much at the rim, so every rim vertex has an angle of its own
@@ -37,6 +37,9 @@ def build_spiral(ctx: Context) -> Component:
     check_fits((width, width, base + total), ctx.volumes, "spiral phase plate")
     phi, z = spiral_samples(radius, base, total, steps)
     solid = azimuthal_solid(phi, z, radius, "spiral phase plate")
+    centre = centre_fill_radius_mm(ctx.printer, total, steps, radius)
+    if centre > 0:
+        solid = union([solid, disc(centre, base + total, "spiral centre")], "spiral phase plate")
     if charge < 0:
         solid = checked(solid.mirror((0.0, 1.0, 0.0)), "spiral phase plate")
     solid = add_flange_ring(solid, radius, p)
@@ -44,8 +47,25 @@ def build_spiral(ctx: Context) -> Component:
         "total_step_mm": total, "full_wave_step_mm": medium.full_wave_step_mm,
         "step_height_mm": total / steps if steps else None, "max_thickness_mm": float(z.max()),
         "handedness": "counter-clockwise" if charge > 0 else "clockwise",
+        "centre_fill_radius_mm": centre,
     }
     return finish(ctx, solid, medium, derived, focal_length_mm=None)
+
+
+def centre_fill_radius_mm(printer, total_mm: float, steps: int, radius_mm: float) -> float:
+    """Return the radius of the solid pin filling the plate's centre so that this printer can make it (0: none).
+
+    Each layer of a spiral is a sector; near the axis its narrowest sector (one step, 2 pi / N, or for a
+    continuous ramp one layer's rise, 2 pi dz / total) is narrower than any printer can make, as solid
+    (the top layers) and as void (the bottom ones). Inside the radius where that sector is as wide as the
+    printer's smallest wall or gap, the plate is made solid to its full height: the vortex's dark core is
+    there, so the beam barely sees it (the report's vortex section measures what it costs).
+    """
+    smallest = smallest_printable_mm(printer)
+    if smallest <= 0:
+        return 0.0
+    angle = 2 * np.pi / steps if steps else 2 * np.pi * printer.layer_height_mm / total_mm
+    return float(min(smallest / angle, radius_mm / 4))
 
 
 def spiral_samples(radius: float, base: float, total: float, steps: int) -> tuple[np.ndarray, np.ndarray]:

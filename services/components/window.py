@@ -51,8 +51,8 @@ def _band(ctx: Context) -> tuple[Medium, Medium, Medium]:
     """Return the material at the band's bottom, centre and top."""
     p = ctx.params
     if p["freq_max_ghz"] <= p["freq_min_ghz"]:
-        raise UnusableInput("bad_parameter", f"freq_max_ghz ({p['freq_max_ghz']:g}) must lie above freq_min_ghz "
-                            f"({p['freq_min_ghz']:g}).")
+        raise UnusableInput("bad_parameter", f"The highest frequency ({p['freq_max_ghz']:g} GHz) must lie above the "
+                            f"lowest ({p['freq_min_ghz']:g} GHz).")
     centre = (p["freq_min_ghz"] + p["freq_max_ghz"]) / 2
     return tuple(medium_at(ctx.material, f) for f in (p["freq_min_ghz"], centre, p["freq_max_ghz"]))
 

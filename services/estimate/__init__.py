@@ -11,7 +11,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from services.errors import UnusableInput
-from services.estimate.calibration import Calibration, fit_calibration
+from services.estimate.calibration import MIN_LOGS, Calibration, fit_calibration
 from services.estimate.material import MaterialUse, material_use, support_columns_mm2
 from services.estimate.packing import Placement, pack_rectangles
 from services.estimate.quote import Cost, CostLine, QuantityRow, job_cost, quantity_table, rates_of
@@ -81,8 +81,8 @@ def estimate_print(*, stack: LayerStack, part: Part, printer: PrinterProfile, ma
     check_pairing(printer, material)
     model = model_of(printer)
     rates = rates_of(printer, material)
-    loads, support_source = layer_loads(stack, printer, support_volume_mm3)
-    calibrated = calibration is not None and calibration.count > 0
+    loads, support_source = layer_loads(stack, printer, support_volume_mm3, name=part.name)
+    calibrated = calibration is not None and calibration.applies
     factor = calibration.factor if calibrated else 1.0
 
     def timer(parts: int) -> float:
@@ -102,17 +102,17 @@ def estimate_print(*, stack: LayerStack, part: Part, printer: PrinterProfile, ma
         calibrated=calibrated, calibration=calibration, time_model=model, layers=stack.count,
         height_mm=stack.count * stack.layer_height_mm, footprint_mm=footprint, parts_per_build=len(layout),
         cost=cost, quantities=rows, layout=layout,
-        notes=_notes(loads, part, printer, layout, calibrated, support_source),
+        notes=_notes(loads, part, printer, layout, calibration, support_source),
     )
 
 
-def layer_loads(stack: LayerStack, printer: PrinterProfile,
-                support_volume_mm3: float | None = None) -> tuple[LayerLoads, str]:
+def layer_loads(stack: LayerStack, printer: PrinterProfile, support_volume_mm3: float | None = None,
+                *, name: str = "The part") -> tuple[LayerLoads, str]:
     """Return one part's per-layer loads, supports scaled by the profile's density, and their origin."""
     if stack.count == 0 or not np.any(stack.area_mm2 > 0):
         raise UnusableInput("empty_part",
-                            "The part has no solid at this printer's pixel and "
-                            "layer size; check the units and the part's size.")
+                            f"{name}: the part has no solid at this printer's {stack.pixel_mm:g} mm pixel "
+                            f"and {stack.layer_height_mm:g} mm layers; check the units and the part's size.")
     columns = support_columns_mm2(stack)
     source = "projection"
     if support_volume_mm3 is not None:
@@ -157,7 +157,7 @@ def _mesh_volume_ml(part: Part) -> float | None:
 
 
 def _notes(loads: LayerLoads, part: Part, printer: PrinterProfile, layout: tuple,
-           calibrated: bool, support_source: str) -> tuple[str, ...]:
+           calibration: Calibration | None, support_source: str) -> tuple[str, ...]:
     notes = []
     mesh_ml = _mesh_volume_ml(part)
     printed_ml = loads.part_volume_mm3 / 1000.0
@@ -170,6 +170,12 @@ def _notes(loads: LayerLoads, part: Part, printer: PrinterProfile, layout: tuple
                      "as if it did, and there is no quantity table.")
     if support_source == "projection" and loads.support_volume_mm3 > 0:
         notes.append("Supports are estimated by projecting every overhang straight down to the part or the plate.")
-    if not calibrated:
+    if calibration is not None and 0 < calibration.count < MIN_LOGS:
+        notes.append(f"Print time is uncalibrated: {printer.name}'s correction rests on {calibration.count} accepted "
+                     f"print{'s' if calibration.count > 1 else ''} so far and applies from {MIN_LOGS}.")
+    elif calibration is None or not calibration.applies:
         notes.append(f"Print time is uncalibrated: log real print times on {printer.name} to calibrate it.")
+    elif calibration.outliers:
+        notes.append(f"The print-time correction leaves out {len(calibration.outliers)} logged print"
+                     f"{'s' if len(calibration.outliers) > 1 else ''} far from the others (see the printer's page).")
     return tuple(notes)

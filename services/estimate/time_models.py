@@ -129,6 +129,8 @@ def extrusion_time_s(tm: dict, loads: LayerLoads, parts: int) -> float:
 
 def format_duration(seconds: float) -> str:
     """Return a duration a person reads at a glance: '45 s', '12 min', '3 h 05 min', '2 d 4 h'."""
+    if not math.isfinite(seconds):
+        return "no valid time"
     if seconds < 59.5:
         return f"{round(seconds)} s"
     minutes = round(seconds / 60)

@@ -29,7 +29,7 @@ class Losses:
     s21: np.ndarray
     s22: np.ndarray
 
-    def to_dict(self, spillover_db: float) -> dict:
+    def to_dict(self, spillover_db) -> dict:
         """Return the loss split in dB: absorption_db + reflection_db = transmission_loss_db."""
         total = -10 * np.log10(self.transmission)
         reflection = -10 * np.log10(1 - self.reflection)
@@ -82,42 +82,75 @@ class FocusMetrics:
     scan_intensity: np.ndarray
     spot: Spot
     ideal: Spot
+    design_plane_fwhm_mm: tuple[float, float] | None = None
 
 
 def focus_metrics(field: np.ndarray, illum: Illumination, *, wavelength_mm: float, intended_mm: float,
-                  exit_offset_mm: float, axis_index: tuple[int, int]) -> FocusMetrics:
+                  exit_offset_mm: float, axis_index: tuple[int, int], reference_depth_mm: float = 0.0) -> FocusMetrics:
     """Propagate the field on the exit plane (on the analysis cells) and measure the focus.
 
     field : (ny, nx) complex, the beam as it leaves the part (``CellSParams.exit_field``), or a thin
     element's illumination x aperture x S21.
     exit_offset_mm : how far the model's exit plane lies beyond the part's far extreme (the
     reference plane), so a distance d from the exit plane is d + offset from the reference.
-    The diffraction-limited reference keeps the same amplitude |field| with a perfect spherical
-    wavefront converging on the wavefront focus; Strehl is the ratio of the two on-axis intensity
-    peaks, so an aberration-free field reads 1 at any Fresnel number (both peaks shift alike).
+    reference_depth_mm : how far below the exit plane the part's exit surface starts (a lens's rim).
+    The diffraction-limited reference is the ideal converging wave from there: the field is taken
+    back to that plane through air (where the rim's wave really begins, before it has diffracted),
+    and the reference keeps its amplitude (cut to the clear aperture, at the whole power) with a perfect
+    spherical wavefront converging on the wavefront focus; Strehl is the ratio of the two on-axis
+    intensity peaks, so an aberration-free part reads 1 (within 0.01 from Fresnel number 10 up; about
+    1.02 at Fresnel number 5, where the on-axis peak is a broad maximum of a wave not quite spherical).
     """
     asm = AngularSpectrum(field, cell_mm=illum.cell_mm, wavelength_mm=wavelength_mm)
     lo = max(SCAN_FROM * intended_mm - exit_offset_mm, wavelength_mm)
     hi = max(SCAN_TO * intended_mm - exit_offset_mm, 2 * lo)
     d_best, scan_d, scan_i = best_focus_mm(asm, axis_index, lo, hi)
     spot = spot_at(asm, d_best)
-    d_wave, _ = wavefront_focus_mm(field, illum.cell_mm, axis_index, wavelength_mm, lo, hi)
-    radius = np.hypot(*np.meshgrid((np.arange(field.shape[1]) - axis_index[1]) * illum.cell_mm,
-                                   (np.arange(field.shape[0]) - axis_index[0]) * illum.cell_mm))
-    ideal_asm = AngularSpectrum(np.abs(field) * ideal_lens_phase(radius, d_wave, wavelength_mm),
-                                cell_mm=illum.cell_mm, wavelength_mm=wavelength_mm)
-    # An aberration-free wave peaks short of its centre by about 1 / (1 + pi^2 N^2 / 12) of it (Li & Wolf
-    # 1981, from memory): past a quarter of it down to Fresnel number N = 0.6.
-    ideal = spot_at(ideal_asm, best_focus_mm(ideal_asm, axis_index, max(lo, d_wave / 4), min(hi, 1.05 * d_wave),
-                                             samples=REFERENCE_SAMPLES)[0])
+    depth = max(float(reference_depth_mm), 0.0)
+    pupil = asm.plane(-depth) if depth > 0 else field
+    # The pupil is the clear aperture: light the rim has already scattered outside it is no part of the
+    # ideal wave (Born & Wolf 9.1, from memory), and its stray phase would pull the fit; the ideal wave
+    # carries the whole power, so the share scattered off the pupil does not read as gain.
+    power = float((np.abs(pupil) ** 2).sum())
+    pupil = pupil * illum.aperture
+    pupil = pupil * np.sqrt(power / max(float((np.abs(pupil) ** 2).sum()), 1e-300))
+    d_ref, _ = wavefront_focus_mm(pupil, illum.cell_mm, axis_index, wavelength_mm, lo + depth, hi + depth)
+    ideal = _ideal_spot(np.abs(pupil), illum.cell_mm, axis_index, wavelength_mm, d_ref, lo + depth, hi + depth)
+    # A requirement on spot size means the spot where the detector sits: the design focal plane.
+    design_plane = spot_at(asm, max(intended_mm - exit_offset_mm, wavelength_mm))
     iris = EFFICIENCY_RADIUS_FWHM * float(np.mean(ideal.fwhm_mm))
     inside = encircled_power(np.abs(spot.field) ** 2, illum.cell_mm, spot.peak_index, iris)
     return FocusMetrics(
-        best_focus_mm=d_best + exit_offset_mm, wavefront_focus_mm=d_wave + exit_offset_mm, fwhm_mm=spot.fwhm_mm,
-        diffraction_limited_fwhm_mm=ideal.fwhm_mm, strehl=spot.peak_intensity / ideal.peak_intensity,
-        focusing_efficiency=inside / illum.aperture_power, scan_mm=scan_d + exit_offset_mm,
-        scan_intensity=scan_i, spot=spot, ideal=ideal,
+        best_focus_mm=d_best + exit_offset_mm, wavefront_focus_mm=d_ref - depth + exit_offset_mm,
+        fwhm_mm=spot.fwhm_mm, diffraction_limited_fwhm_mm=ideal.fwhm_mm,
+        strehl=spot.peak_intensity / ideal.peak_intensity, focusing_efficiency=inside / illum.aperture_power,
+        scan_mm=scan_d + exit_offset_mm, scan_intensity=scan_i, spot=spot, ideal=ideal,
+        design_plane_fwhm_mm=design_plane.fwhm_mm,
     )
+
+
+def _ideal_spot(amplitude: np.ndarray, cell_mm: float, axis_index: tuple[int, int], wavelength_mm: float,
+                focal_mm: float, lo_mm: float, hi_mm: float) -> Spot:
+    """Return the brightest spot of the amplitude with a perfect wavefront converging ``focal_mm`` away."""
+    radius = np.hypot(*np.meshgrid((np.arange(amplitude.shape[1]) - axis_index[1]) * cell_mm,
+                                   (np.arange(amplitude.shape[0]) - axis_index[0]) * cell_mm))
+    asm = AngularSpectrum(amplitude * ideal_lens_phase(radius, focal_mm, wavelength_mm), cell_mm=cell_mm,
+                          wavelength_mm=wavelength_mm)
+    # An aberration-free wave peaks short of its centre by about 1 / (1 + pi^2 N^2 / 12) of it (Li & Wolf
+    # 1981, from memory): past a quarter of it down to Fresnel number N = 0.6.
+    span = (max(lo_mm, focal_mm / 4), min(hi_mm, 1.05 * focal_mm))
+    return spot_at(asm, best_focus_mm(asm, axis_index, *span, samples=REFERENCE_SAMPLES)[0])
+
+
+def surface_depth_mm(sp: CellSParams, illum: Illumination) -> float:
+    """Return how far below the exit plane the exit surface starts inside the clear aperture (a lens's rim)."""
+    inside = (illum.aperture >= 0.5) & (sp.surface_mm > 0)
+    return float(sp.top_mm - sp.surface_mm[inside].min()) if inside.any() else 0.0
+
+
+def design_plane_ratio(m: FocusMetrics) -> float:
+    """Return the spot's mean FWHM at the design focal plane over the diffraction-limited FWHM."""
+    return float(np.mean(m.design_plane_fwhm_mm) / np.mean(m.diffraction_limited_fwhm_mm))
 
 
 def focus_dict(intended_mm: float, metrics: list[FocusMetrics]) -> dict:
@@ -129,6 +162,8 @@ def focus_dict(intended_mm: float, metrics: list[FocusMetrics]) -> dict:
         "fwhm_mm": [[round(v, 4) for v in m.fwhm_mm] for m in metrics],
         "diffraction_limited_fwhm_mm": [[round(v, 4) for v in m.diffraction_limited_fwhm_mm] for m in metrics],
         "fwhm_ratio": _r([np.mean(m.fwhm_mm) / np.mean(m.diffraction_limited_fwhm_mm) for m in metrics]),
+        "design_plane_fwhm_mm": [[round(v, 4) for v in m.design_plane_fwhm_mm] for m in metrics],
+        "design_plane_fwhm_ratio": _r([design_plane_ratio(m) for m in metrics]),
         "strehl": _r([m.strehl for m in metrics]),
         "focusing_efficiency": _r([m.focusing_efficiency for m in metrics]),
     }

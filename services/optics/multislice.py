@@ -25,7 +25,6 @@ import numpy as np
 from scipy import fft as sfft
 
 from services.optics.cells import CellGrid
-from services.optics.effective_medium import effective_permittivity
 
 ABSORBER_WAVELENGTHS = 1.0  # absorbing margin around the window: light leaving the part sideways does not wrap round
 SOLID, VOID = 1 - 1e-6, 1e-6  # fill fractions this close to 1 or 0 count as solid or air (pixel-count rounding)
@@ -37,6 +36,8 @@ class Beam:
 
     field : (ny * sub, nx * sub), the incident field on ``grid.subdivided(sub)`` (zero off the aperture)
     slice_mm : the longest step along z; pad_mm : the absorbing margin around the window
+    zone : (ny * sub, nx * sub) bool, the sub-cells of the clear aperture, or None for all: material
+    outside it (a mounting flange) is the mount's, left out of the march like the mount itself
     """
 
     field: np.ndarray
@@ -44,6 +45,7 @@ class Beam:
     sub: int
     slice_mm: float
     pad_mm: float
+    zone: np.ndarray | None = None
 
     @property
     def fine(self) -> CellGrid:
@@ -153,9 +155,9 @@ class March:
     ``finish`` returns the field's spectrum at the top of the stack (the exit plane).
     """
 
-    def __init__(self, window: Window, beam: Beam, *, eps: np.ndarray, model: str, layer_mm: float,
+    def __init__(self, window: Window, beam: Beam, *, eps: np.ndarray, index, layer_mm: float,
                  layers_per_slice: int, count: int) -> None:
-        self.window, self.eps, self.model = window, np.asarray(eps), model
+        self.window, self.eps, self.index = window, np.asarray(eps), index
         self.layer_mm, self.per_slice, self.count = layer_mm, layers_per_slice, count
         self.field = window.embed(beam.field)
         self.pending_mm = 0.0
@@ -186,7 +188,7 @@ class March:
         dz = layers * self.layer_mm
         full = layers == self.per_slice
         self._travel(self.pending_mm + dz / 2, keep=full and self.pending_mm in (0.0, dz / 2))
-        self.field[(slice(None), *self.window.inner)] *= self.sum.screen(self.window.k0, self.eps, self.model,
+        self.field[(slice(None), *self.window.inner)] *= self.sum.screen(self.window.k0, self.eps, self.index,
                                                                          self.layer_mm)
         self.pending_mm = dz / 2
         self.sum = _SliceSum(self.window.shape)
@@ -229,8 +231,11 @@ class _SliceSum:
         if len(parts.index):
             self.parts.append((parts, layers))
 
-    def screen(self, k0: np.ndarray, eps: np.ndarray, model: str, layer_mm: float) -> np.ndarray:
-        """Return exp(-j k0 sum (n_eff - 1) d) over the slice's layers, (nf, ny, nx) complex64."""
+    def screen(self, k0: np.ndarray, eps: np.ndarray, cell_index, layer_mm: float) -> np.ndarray:
+        """Return exp(-j k0 sum (n_eff - 1) d) over the slice's layers, (nf, ny, nx) complex64.
+
+        ``cell_index`` maps partly filled sub-cells' fills to (n, z) per frequency (``cell_model.CellIndex``).
+        """
         n = np.sqrt(eps + 0j)
         table = np.exp(-1j * k0[:, None] * (n - 1)[:, None] * (np.arange(self.layers + 1) * layer_mm)[None, :])
         out = table.astype(np.complex64)[:, self.solid.ravel()]
@@ -238,7 +243,7 @@ class _SliceSum:
             index = np.concatenate([p.index for p, _ in self.parts])
             fill = np.concatenate([p.fill for p, _ in self.parts])
             depth = np.concatenate([np.full(len(p.index), m * layer_mm) for p, m in self.parts])
-            n_eff = np.sqrt(effective_permittivity(fill[None, :], eps[:, None], model) + 0j)
+            n_eff = cell_index(fill)[0]
             delay = (n_eff - 1) * depth[None, :]
             unique, where = np.unique(index, return_inverse=True)
             total = np.array([np.bincount(where, d.real, len(unique)) + 1j * np.bincount(where, d.imag, len(unique))

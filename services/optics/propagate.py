@@ -46,7 +46,8 @@ class AngularSpectrum:
         else:
             arg = 1.0 / lam**2 - f2
             kz = np.sqrt(np.abs(arg))
-            h = np.where(arg >= 0, np.exp(-2j * np.pi * z_mm * kz), np.exp(-2 * np.pi * z_mm * kz))
+            # Back-propagation (z < 0) drops the evanescent waves rather than growing them.
+            h = np.where(arg >= 0, np.exp(-2j * np.pi * z_mm * kz), np.exp(-2 * np.pi * abs(z_mm) * kz))
         # Band limit: u_lim = 1 / (lambda sqrt((2 du z)^2 + 1)), du the padded window's frequency step.
         lim_x = 1.0 / (lam * np.sqrt((2 * z_mm / (self.padded[1] * self.cell_mm)) ** 2 + 1))
         lim_y = 1.0 / (lam * np.sqrt((2 * z_mm / (self.padded[0] * self.cell_mm)) ** 2 + 1))

@@ -14,14 +14,16 @@ import numpy as np
 from services.optics.materials import complex_index, wavelength_mm
 
 
-def layer_abcd(n, thickness_mm, k0_per_mm):
+def layer_abcd(n, thickness_mm, k0_per_mm, z=None):
     """Return the ABCD matrix of one layer normalised to free space (Pozar 2012, Table 4.1).
 
-    A = D = cos(k0 n d), B = j sin(k0 n d) / n, C = j n sin(k0 n d): a line of impedance eta0 / n.
+    A = D = cos(k0 n d), B = j z sin(k0 n d), C = j sin(k0 n d) / z: a line of impedance z eta0,
+    z = 1 / n for a uniform material (an equivalent layer of a periodic cell brings its own z).
     """
     delta = k0_per_mm * n * thickness_mm
     cos, sin = np.cos(delta), np.sin(delta)
-    return cos, 1j * sin / n, 1j * n * sin, cos
+    z = 1 / n if z is None else z
+    return cos, 1j * z * sin, 1j * sin / z, cos
 
 
 def cascade(layers: Iterable[tuple[np.ndarray, float]], k0_per_mm):
@@ -36,6 +38,18 @@ def cascade(layers: Iterable[tuple[np.ndarray, float]], k0_per_mm):
     if a is None:
         one = np.ones_like(np.asarray(k0_per_mm), dtype=complex)
         return one, 0 * one, 0 * one, one
+    return a, b, c, d
+
+
+def cascade_abcd(layers: Iterable[tuple[np.ndarray, np.ndarray, float]], k0_per_mm):
+    """Multiply the ABCD matrices of (index, impedance over eta0, thickness_mm) layers, first met first."""
+    a = b = c = d = None
+    for n, z, thickness_mm in layers:
+        la, lb, lc, ld = layer_abcd(n, thickness_mm, k0_per_mm, z)
+        if a is None:
+            a, b, c, d = la, lb, lc, ld
+            continue
+        a, b, c, d = a * la + b * lc, a * lb + b * ld, c * la + d * lc, c * lb + d * ld
     return a, b, c, d
 
 

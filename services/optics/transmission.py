@@ -20,8 +20,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from services.optics.cells import CellGrid, cell_runs
-from services.optics.effective_medium import DEFAULT_MODEL, effective_permittivity
+from services.optics.cells import CellGrid, cell_runs, site_reads
+from services.optics.cell_model import CellIndex
+from services.optics.effective_medium import DEFAULT_MODEL
 from services.optics.materials import RFValues, wavelength_mm
 from services.optics.multislice import Beam, March, Window
 from services.optics.transfer import layer_abcd, s_parameters
@@ -46,6 +47,8 @@ class CellSParams:
     s11, s21, s22 : (nf, ny, nx) complex, e^{+j omega t} convention
     top_mm : height of the exit plane (the stack's top) above the build plate
     exit_field : (nf, ny, nx) complex, the beam's field on the exit plane (multi-slice), or None
+    surface_mm : (ny, nx) height of each cell's exit surface (the top of its highest layer holding any
+    material; 0 where none does), or None
     """
 
     s11: np.ndarray
@@ -53,39 +56,81 @@ class CellSParams:
     s22: np.ndarray
     top_mm: float
     exit_field: np.ndarray | None = None
+    surface_mm: np.ndarray | None = None
 
 
 def cell_sparams(stack, grid: CellGrid, rf: RFValues, *, variants: Sequence[Variant] = NOMINAL,
                  model: str = DEFAULT_MODEL, progress: Callable[[float], None] | None = None,
-                 beam: Beam | None = None) -> dict[str, CellSParams]:
-    """Return each variant's per-cell S-parameters at every frequency of ``rf`` (and exit field, given a beam)."""
+                 beam: Beam | None = None, cells: CellIndex | None = None) -> dict[str, CellSParams]:
+    """Return each variant's per-cell S-parameters at every frequency of ``rf`` (and exit field, given a beam).
+
+    ``cells`` maps a partly filled cell to its layer (a rigorous table); by default the effective medium ``model``.
+    """
     k0 = (2 * np.pi / wavelength_mm(rf.freqs_ghz))[:, None]
     eps = (rf.eps_r * (1 - 1j * rf.tan_delta))[:, None]
+    index = cells if cells is not None else CellIndex(eps[:, 0], model)
     grows = any(v.grow_mm for v in variants)
-    cascades = {v.name: _CellCascade(grid.shape[0] * grid.shape[1], k0, eps, model) for v in variants}
-    marches = _marches(stack, beam, variants, k0[:, 0], eps[:, 0], model) if beam is not None else {}
+    # A lattice grid cascades its cells' own fills (for the single-pass path under the march) and then the
+    # four sites each cell overlaps, whose S-parameters it averages by share (``cells.site_reads``).
+    blocks = 5 if grid.lattice is not None else 1
+    cascades = {v.name: _CellCascade(blocks * grid.shape[0] * grid.shape[1], k0, index) for v in variants}
+    marches = _marches(stack, beam, variants, k0[:, 0], eps[:, 0], index) if beam is not None else {}
     fine_cell = grid.cell_mm / (beam.sub if beam is not None else 1)
+    surface = np.zeros(grid.shape)
     for run in cell_runs(stack, grid, with_edges=grows, sub=beam.sub if beam is not None else 1):
+        surface[run.fill > 0] = (run.last + 1) * stack.layer_height_mm
         for v in variants:
-            cascades[v.name].add(_grown(run.fill, run.edge_mm, v, grid.cell_mm).ravel(), run.thickness_mm * v.z_scale)
+            fill = _grown(run.fill, run.edge_mm, v, grid.cell_mm).ravel()
+            if run.site_fill is not None:
+                fill = np.concatenate([fill, _grown(run.site_fill, run.site_edge_mm, v, grid.cell_mm).ravel()])
+            cascades[v.name].add(fill, run.thickness_mm * v.z_scale)
             if v.name in marches:
                 fine = run.fill if run.fine_fill is None else run.fine_fill
                 edge = run.edge_mm if run.fine_edge_mm is None else run.fine_edge_mm
-                marches[v.name].add(run.first, run.last, _grown(fine, edge, v, fine_cell))
+                grown = _grown(fine, edge, v, fine_cell)
+                marches[v.name].add(run.first, run.last, grown if beam.zone is None else grown * beam.zone)
         if progress:
             progress((run.last + 1) / stack.count)
     top = stack.count * stack.layer_height_mm
     out = {}
     for v in variants:
         cascade = cascades[v.name]
-        a, b, c, d = (m.reshape((-1, *grid.shape)) for m in cascade.finish())
+        a, b, c, d = (m.reshape((-1, blocks, *grid.shape)) for m in cascade.finish())
         s11, s21, s22 = s_parameters(a, b, c, d)
+        path = cascade.path.reshape((-1, blocks, *grid.shape))[:, 0]
+        if blocks == 1:
+            s11, s21, s22 = s11[:, 0], s21[:, 0], s22[:, 0]
+        else:
+            share = site_reads(grid).weight
+            s11, s21, s22 = (_between_sites(s[:, 1:], share) for s in (s11, s21, s22))
         field = None
         if v.name in marches:
-            single_pass = np.exp(-1j * k0 * cascade.path).reshape(s21.shape)
-            field = marches[v.name].window.cells(marches[v.name].finish()) * (s21 / single_pass)
-        out[v.name] = CellSParams(s11, s21, s22, top * v.z_scale, field)
+            faces = s21 / np.exp(-1j * k0[:, :, None] * path)
+            if beam.zone is not None:  # the march crossed only air outside the clear aperture
+                faces = np.where(_coarse_any(beam.zone, beam.sub), faces, 1.0)
+            field = marches[v.name].window.cells(marches[v.name].finish()) * faces
+        out[v.name] = CellSParams(s11, s21, s22, top * v.z_scale, field, surface * v.z_scale)
     return out
+
+
+def _between_sites(values: np.ndarray, share: np.ndarray) -> np.ndarray:
+    """Return the sites' S-parameter at the cell centre: the share-weighted amplitude, and the phase of the
+    share-weighted sum (``values`` (nf, 4, ny, nx), ``share`` (4, ny, nx)).
+
+    The field is known at the sites; between them it is interpolated. Interpolating the complex values
+    would dim a tilted wavefront (two sites 0.8 rad apart, halfway, to cos 0.4 = 0.92 of its amplitude) and
+    so the focus; the phase of the sum interpolates a linear phase within 0.01 rad there, and across a
+    graded plate's 2 pi seam it keeps the common phase, where interpolating fills would not.
+    """
+    total = (values * share[None]).sum(axis=1)
+    amplitude = (np.abs(values) * share[None]).sum(axis=1)
+    return amplitude * np.exp(1j * np.angle(total))
+
+
+def _coarse_any(fine: np.ndarray, sub: int) -> np.ndarray:
+    """Return the cells holding any true sub-cell."""
+    ny, nx = fine.shape[0] // sub, fine.shape[1] // sub
+    return fine.reshape(ny, sub, nx, sub).any(axis=(1, 3))
 
 
 def _grown(fill: np.ndarray, edge_mm: np.ndarray, v: Variant, cell_mm: float) -> np.ndarray:
@@ -94,11 +139,11 @@ def _grown(fill: np.ndarray, edge_mm: np.ndarray, v: Variant, cell_mm: float) ->
 
 
 def _marches(stack, beam: Beam, variants: Sequence[Variant], k0: np.ndarray, eps: np.ndarray,
-             model: str) -> dict[str, March]:
+             index: CellIndex) -> dict[str, March]:
     """Return one multi-slice march per variant; variants of the same height share the window's kernels."""
     window = Window(beam, k0)
     per_slice = max(1, int(np.floor(beam.slice_mm / stack.layer_height_mm + 1e-9)))
-    return {v.name: March(window, beam, eps=eps, model=model, layer_mm=stack.layer_height_mm * v.z_scale,
+    return {v.name: March(window, beam, eps=eps, index=index, layer_mm=stack.layer_height_mm * v.z_scale,
                           layers_per_slice=per_slice, count=stack.count) for v in variants}
 
 
@@ -110,13 +155,13 @@ class _CellCascade:
     surfaces rather than its volume.
     """
 
-    def __init__(self, cells: int, k0: np.ndarray, eps: np.ndarray, model: str) -> None:
+    def __init__(self, cells: int, k0: np.ndarray, index: CellIndex) -> None:
         one = np.ones((len(k0), cells), dtype=complex)
         self.m = [one, np.zeros_like(one), np.zeros_like(one), one.copy()]
         self.fill = np.zeros(cells)
         self.depth_mm = np.zeros(cells)
         self.path = np.zeros((len(k0), cells), dtype=complex)  # sum of n d along each cell: its single straight pass
-        self.k0, self.eps, self.model = k0, eps, model
+        self.k0, self.index = k0, index
 
     def add(self, fill: np.ndarray, thickness_mm: float) -> None:
         changed = fill != self.fill
@@ -134,9 +179,9 @@ class _CellCascade:
         """Multiply the pending (fill, depth) layer of cells ``idx`` into their matrices."""
         if len(idx) == 0:
             return
-        n = np.sqrt(effective_permittivity(self.fill[idx][None], self.eps, self.model))
+        n, z = self.index(self.fill[idx])
         self.path[:, idx] += n * self.depth_mm[idx][None]
-        la, lb, lc, ld = layer_abcd(n, self.depth_mm[idx][None], self.k0)
+        la, lb, lc, ld = layer_abcd(n, self.depth_mm[idx][None], self.k0, z)
         a, b, c, d = (m[:, idx] for m in self.m)
         self.m[0][:, idx], self.m[1][:, idx] = a * la + b * lc, a * lb + b * ld
         self.m[2][:, idx], self.m[3][:, idx] = c * la + d * lc, c * lb + d * ld

@@ -21,7 +21,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from services.findings import Finding
+from services.findings import INSTANCES_SHOWN, Finding, instance_rows, rule_label
 from services.rules import RuleOutput
 from services.rules.common import RuleCollector, family_check, fmt_xyz, output, picture
 from services.rules.scan import RunView, refine_width
@@ -29,7 +29,7 @@ from services.rules.scan import RunView, refine_width
 RULE = "aspect_ratio"
 
 
-check = family_check(RULE)
+check = family_check(RULE, lambda: Collector)
 
 
 class Collector(RuleCollector):
@@ -126,9 +126,13 @@ class Collector(RuleCollector):
         _, labels = view.solid
         highlight = labels == labels.ravel()[flat]
         png = picture(frame, layer=k, flat=flat, highlight=highlight, half_px=int(3 * self.width[i]) + 10,
-                      title=f"aspect_ratio: layer {k}, z = {where[2]:.2f} mm")
+                      title=f"{rule_label(RULE)}: layer {k}, z = {where[2]:.2f} mm")
+        top = sections[np.argsort(-ratio[sections], kind="stable")[:INSTANCES_SHOWN]]  # layer spans cost a search each
+        spans = [_track_layers(self, int(self.track[j])) for j in top]
+        listed = instance_rows(frame, measured=ratio[top], flats=self.at[top], layers=self.first[top],
+                               firsts=[a for a, _ in spans], lasts=[b for _, b in spans], worst="max")
         finding = Finding(RULE, severity, message, measured=round(float(ratio[i]), 2), limit=limit, unit="ratio",
-                          location_mm=where, layers=layers, count=count, picture=name)
+                          location_mm=where, layers=layers, count=count, picture=name, instances=listed)
         return finding, {name: png}
 
 

@@ -2,12 +2,14 @@
 
 from __future__ import annotations
 
+from collections.abc import Callable
+
 import numpy as np
 from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components
 
 from services import pictures
-from services.findings import SEVERITIES, Finding
+from services.findings import SEVERITIES, Finding, instance_rows
 from services.rules import RuleOutput
 
 
@@ -29,15 +31,36 @@ def missing_note(rule: str, printer, what: str) -> Finding:
     return Finding(rule, "note", f"Not checked: printer profile {printer.name!r} gives no {what}.")
 
 
-def family_check(rule: str, doc: str | None = None):
-    """Return a family's ``check(*, stack, part, printer)``: its output from the shared pass."""
-    def check(*, stack, part, printer):
-        from services.rules.registry import run_family
+def family_check(rule: str, collector: Callable[[], type], doc: str | None = None):
+    """Return a family's own ``check(*, stack, part, printer)``: its collector alone, in a pass over the stack.
 
-        return run_family(rule, stack=stack, part=part, printer=printer)
+    ``collector`` returns the family's collector class (called late, so a module can name a class defined
+    below). The registry runs all families in one shared pass instead; a rule module never imports it.
+    """
+    def check(*, stack, part, printer):
+        from services.rules import scan
+
+        return scan.outputs(stack, part, printer, {rule: collector()})[rule]
 
     check.__doc__ = doc or f"Return the {rule} findings on the layer stack."
     return check
+
+
+def group_instances(frame, inst: dict, chosen: np.ndarray) -> tuple[dict, ...]:
+    """Return the listed instances of a Groups result (``Groups.instances()``) where ``chosen``, widths in mm."""
+    rows = np.flatnonzero(chosen)
+    return instance_rows(frame, measured=inst["value"][rows] * frame.px, flats=inst["at"][rows],
+                         layers=inst["layer"][rows], firsts=inst["first"][rows], lasts=inst["last"][rows])
+
+
+def bounded_instances(frame, found: dict, chosen: np.ndarray) -> tuple[dict, ...]:
+    """Return the listed instances of bounded voids (``Bounded.instances()``) where ``chosen``, heights in mm."""
+    rows = np.flatnonzero(chosen)
+    base, height = found["base_mm"][rows], found["height_mm"][rows]
+    mid = np.minimum(((base + height / 2) / frame.dz).astype(int), frame.stack.count - 1)
+    return instance_rows(frame, measured=height, flats=found["at"][rows], layers=mid,
+                         firsts=np.round(base / frame.dz).astype(int),
+                         lasts=np.round((base + height) / frame.dz).astype(int) - 1)
 
 
 class RuleCollector:

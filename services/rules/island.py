@@ -14,7 +14,7 @@ from __future__ import annotations
 import cv2
 import numpy as np
 
-from services.findings import Finding
+from services.findings import Finding, instance_rows, rule_label
 from services.rules import raster
 from services.rules.common import RuleCollector, family_check, fmt_xyz, output, picture, severity_of
 from services.rules.overhang import FLAT_STEPS, reach_px, undersides
@@ -23,7 +23,7 @@ from services.rules.scan import RunView
 RULE = "island"
 
 
-check = family_check(RULE)
+check = family_check(RULE, lambda: Collector)
 
 
 class Collector(RuleCollector):
@@ -76,9 +76,11 @@ class Collector(RuleCollector):
         highlight[r0:r0 + starts.shape[0], c0:c0 + starts.shape[1]] = starts > 0
         name = f"{RULE}.png"
         png = picture(frame, layer=k, flat=at, highlight=highlight, half_px=int(2 * np.sqrt(area[i])) + 20,
-                      title=f"island: layer {k}, z = {where[2]:.2f} mm")
+                      title=f"{rule_label(RULE)}: layer {k}, z = {where[2]:.2f} mm")
+        listed = instance_rows(frame, measured=area * frame.px ** 2, flats=flat, layers=layer, firsts=layer,
+                               lasts=layer, worst="max")
         finding = Finding(RULE, self.severity, message, measured=round(area_mm2, 4), unit="mm2",
-                          location_mm=where, layers=(k, k), count=n, picture=name)
+                          location_mm=where, layers=(k, k), count=n, picture=name, instances=listed)
         return output([*self.notes, finding], {name: png})
 
 

@@ -6,9 +6,9 @@ analysis; geometry-bench.md section 4):
   free-standing limit is a free-standing feature (a pin, a fin): it is judged against
   ``unsupported_mm``. Where the profile gives only ``supported_mm``, everything is judged by that.
 * Elsewhere, material left over by an exact disk opening at ``supported_mm`` is a candidate. A
-  candidate pixel counts when the width across it, measured along the line from its nearest void,
-  is under the limit: that keeps necks, webs and fins and drops the staircase corners of wide
-  material that no disk reaches (bench section 8, item 4).
+  candidate pixel counts when the width across it, measured along the edge normal at its nearest
+  void (``services.rules.thin``), is under the limit: that keeps necks, webs and fins and drops the
+  staircase corners of wide material that no disk reaches (bench section 8, item 4), at any angle.
 * Candidates are grouped into instances across layers; an instance counts when it stays thin over
   more than the limit's own height, so the rounded crest of a wide wall or a low relief is not a
   feature (the limit-sized ball of a 3-D thickness check would cover it too).
@@ -16,11 +16,15 @@ analysis; geometry-bench.md section 4):
 Error model: the printer grid cannot resolve widths finer than a pixel, so a limit is taken in
 whole pixels, rounded down (in the part's favour by under one pixel). A straight wall sampled at
 pixel centres is n pixels wide with |n px - w| < 1 px. A supported feature reports its narrowest
-width across (pixels counted from void to void along the line from the nearest void: exactly n for
-a straight wall of either parity); a free-standing one reports twice its inscribed radius on a 2x
+width across (edge to edge along the normal: within half a pixel of a straight wall's drawn width
+at any angle near the limit); a free-standing one reports twice its inscribed radius on a 2x
 finer distance map (exactly n for a straight wall; a round section, whose staircase cuts the rim,
 takes the mean with its area-equivalent diameter: within about half a pixel). So the measured
-width is within one pixel of the drawn width at any pixel size (tests: 25, 50 and 100 um).
+width is within one pixel of the drawn width at any pixel size (tests: 25, 50 and 100 um) and at
+any turn on the plate (tests/services/rules/test_any_angle.py).
+
+Convention at the limit: a width is flagged when, rounded to whole pixels, it is under the limit in
+whole pixels; a feature drawn exactly at the limit passes.
 """
 
 from __future__ import annotations
@@ -28,15 +32,16 @@ from __future__ import annotations
 import cv2
 import numpy as np
 
-from services.findings import Finding
-from services.rules import RuleOutput, raster
-from services.rules.common import Groups, RuleCollector, family_check, fmt_mm, fmt_xyz, output, picture
+from services.findings import Finding, rule_label
+from services.rules import RuleOutput, raster, thin
+from services.rules.common import (Groups, RuleCollector, family_check, fmt_mm, fmt_xyz, group_instances, output,
+                                   picture)
 from services.rules.scan import RunView, refine_width
 
 RULE = "min_feature"
 
 
-check = family_check(RULE)
+check = family_check(RULE, lambda: Collector)
 
 
 class Collector(RuleCollector):
@@ -125,9 +130,11 @@ class Collector(RuleCollector):
             highlight = np.zeros_like(layer)
             highlight[rows, cols] = True
         png = picture(frame, layer=k, flat=flat, highlight=highlight, half_px=6 * raster.limit_px(limit, frame.px),
-                      title=f"min_feature: layer {k}, z = {where[2]:.2f} mm")
+                      title=f"{rule_label(RULE)}: layer {k}, z = {where[2]:.2f} mm")
+        listed = group_instances(frame, inst, tall)
         finding = Finding(RULE, self.severity, message, measured=round(width_mm, 4), limit=limit, unit="mm",
-                          location_mm=where, layers=(int(inst["first"][i]), int(inst["last"][i])), count=count, picture=name)
+                          location_mm=where, layers=(int(inst["first"][i]), int(inst["last"][i])), count=count,
+                          picture=name, instances=listed)
         return finding, {name: png}
 
 
@@ -152,7 +159,7 @@ def thin_parts(view: RunView, n_sup: int | None, n_uns: int | None):
     if rows.size == 0:
         return free_lut, none, none, np.zeros(0), np.zeros(0)
     width, depth = _ray(view.mask, rows, cols, n_sup)
-    keep = width < n_sup
+    keep = thin.is_under(width, n_sup)
     return free_lut, rows[keep], cols[keep], width[keep], depth[keep]
 
 
@@ -208,7 +215,7 @@ def _narrow_labels(view: RunView, n_px: int) -> np.ndarray:
     narrow = (width > 0) & (width < n_px)
     edge = np.flatnonzero(narrow & (width >= n_px - 1.5))
     for label in edge.tolist():
-        narrow[label] = refine_width(view.filled, int(at[label]), float(width[label])) < n_px
+        narrow[label] = bool(thin.is_under(refine_width(view.filled, int(at[label]), float(width[label])), n_px))
     return narrow
 
 
@@ -220,4 +227,4 @@ def _ray(mask: np.ndarray, rows: np.ndarray, cols: np.ndarray, n_px: int) -> np.
     crop = mask[r0:r1, c0:c1]
     dist, numbers = raster.nearest_void(crop)
     near = raster.void_index(crop, numbers[rows - r0, cols - c0])
-    return raster.ray_widths(crop, rows - r0, cols - c0, near, n_px), dist[rows - r0, cols - c0]
+    return thin.widths_across(crop, rows - r0, cols - c0, near, n_px), dist[rows - r0, cols - c0]

@@ -2,15 +2,16 @@
 
 In a layer (``xy_mm``) the void is measured the way ``min_feature`` measures material: an exact disk
 opening of the void at the limit finds candidates, the width across each candidate pixel (from its
-nearest material to the material on the other side) keeps necks and slots and drops the corners of
-wide void, and an instance counts when it stays narrow over more than the limit's height, so the
+nearest material to the material on the other side, along that edge's normal: ``services.rules.thin``)
+keeps necks and slots and drops the corners of wide void at any angle, and an instance counts when it stays narrow over more than the limit's height, so the
 root of a sloped groove is not a gap. Enclosed holes that ``min_hole`` judges by their diameter are
 left to it. Along the build axis (``z_mm``), a void with material both under and over it in the
 same pixel column is a horizontal gap of that height; a roofed void whose footprint is about as
 wide as it is tall is a horizontal hole instead and left to ``min_hole``.
 
-Error model: as ``min_feature`` (the limit in whole pixels rounded down, widths within one pixel);
-heights along z are whole layers, within one layer of the drawn gap.
+Error model: as ``min_feature`` (the limit in whole pixels rounded down, widths within one pixel;
+a gap drawn exactly at the limit passes); heights along z are whole layers, within one layer of the
+drawn gap.
 """
 
 from __future__ import annotations
@@ -19,9 +20,10 @@ import math
 
 import numpy as np
 
-from services.findings import Finding
-from services.rules import raster
-from services.rules.common import Groups, RuleCollector, family_check, fmt_mm, fmt_xyz, limit_mm, output, picture
+from services.findings import Finding, rule_label
+from services.rules import raster, thin
+from services.rules.common import (Groups, RuleCollector, bounded_instances, family_check, fmt_mm, fmt_xyz,
+                                   group_instances, limit_mm, output, picture)
 from services.rules.min_feature import _next_to, add_pixel_groups, link_pixels
 from services.rules.scan import RunView
 
@@ -29,7 +31,7 @@ RULE = "min_gap"
 HOLE_SHAPE = 1.5  # a roofed void no wider than 1.5x its height is a horizontal hole, not a gap
 
 
-check = family_check(RULE)
+check = family_check(RULE, lambda: Collector)
 
 
 class Collector(RuleCollector):
@@ -86,8 +88,9 @@ class Collector(RuleCollector):
         rows, cols, _, _ = narrow_void(RunView(frame, -1, k, k, frame.layer(k), None, None), self.n_xy, self.hole_px2)
         highlight = np.zeros((frame.ny, frame.nx), bool)
         highlight[rows, cols] = True
+        listed = group_instances(frame, inst, tall)
         return self._finding(frame, "xy", message, width_mm, self.xy_mm, flat, k, highlight, count,
-                             (int(inst["first"][i]), int(inst["last"][i])))
+                             (int(inst["first"][i]), int(inst["last"][i])), listed)
 
     def _z_finding(self, frame):
         found = frame.bounded.instances()
@@ -104,14 +107,16 @@ class Collector(RuleCollector):
                    f"open to at least {self.z_mm:.2f} mm.")
         highlight = (found["labels"] == i + 1) & ~frame.layer(k)
         layers = (int(round(base / frame.dz)), int(round((base + height) / frame.dz)) - 1)
-        return self._finding(frame, "z", message, height, self.z_mm, flat, k, highlight, count, layers)
+        listed = bounded_instances(frame, found, gaps)
+        return self._finding(frame, "z", message, height, self.z_mm, flat, k, highlight, count, layers, listed)
 
-    def _finding(self, frame, kind, message, measured, limit, flat, k, highlight, count, layers):
+    def _finding(self, frame, kind, message, measured, limit, flat, k, highlight, count, layers, listed=()):
         name = f"{RULE}_{kind}.png"
         png = picture(frame, layer=k, flat=flat, highlight=highlight, half_px=6 * raster.limit_px(limit, frame.px),
-                      title=f"min_gap: layer {k}, z = {frame.z_mm(k):.2f} mm")
+                      title=f"{rule_label(RULE)}: layer {k}, z = {frame.z_mm(k):.2f} mm")
         finding = Finding(RULE, self.severity, message, measured=round(measured, 4), limit=limit, unit="mm",
-                          location_mm=frame.location(flat, k), layers=layers, count=count, picture=name)
+                          location_mm=frame.location(flat, k), layers=layers, count=count, picture=name,
+                          instances=listed)
         return finding, {name: png}
 
 
@@ -134,9 +139,9 @@ def narrow_void(view: RunView, n_px: int, hole_px2: float | None):
     crop = void[r0:rows.max() + m + 1, c0:cols.max() + m + 1]
     depth, numbers = raster.nearest_void(crop)  # from the void, the nearest material
     near = raster.void_index(crop, numbers[rows - r0, cols - c0])
-    width = raster.ray_widths(crop, rows - r0, cols - c0, near, n_px)
-    thin = width < n_px
-    return rows[thin], cols[thin], width[thin], depth[rows[thin] - r0, cols[thin] - c0]
+    width = thin.widths_across(crop, rows - r0, cols - c0, near, n_px)
+    narrow = thin.is_under(width, n_px)
+    return rows[narrow], cols[narrow], width[narrow], depth[rows[narrow] - r0, cols[narrow] - c0]
 
 
 def _hole_area_px(printer, pixel_mm: float) -> float | None:

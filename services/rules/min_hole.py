@@ -18,16 +18,17 @@ import math
 
 import numpy as np
 
-from services.findings import Finding
+from services.findings import Finding, rule_label
 from services.rules import raster
-from services.rules.common import Groups, RuleCollector, family_check, fmt_mm, fmt_xyz, output, picture
+from services.rules.common import (Groups, RuleCollector, bounded_instances, family_check, fmt_mm, fmt_xyz,
+                                   group_instances, output, picture)
 from services.rules.min_gap import HOLE_SHAPE
 from services.rules.scan import RunView
 
 RULE = "min_hole"
 
 
-check = family_check(RULE)
+check = family_check(RULE, lambda: Collector)
 
 
 class Collector(RuleCollector):
@@ -91,8 +92,9 @@ class Collector(RuleCollector):
         view = RunView(frame, -1, k, k, layer, None, None)
         small, _ = small_holes(view, self.along_mm / self.px)
         highlight = small[view.void[1]]
+        listed = group_instances(frame, inst, deep)
         return self._finding(frame, "along_z", message, diameter, self.along_mm, flat, k, highlight, count,
-                             (int(inst["first"][i]), int(inst["last"][i])))
+                             (int(inst["first"][i]), int(inst["last"][i])), listed)
 
     def _across(self, frame):
         found = frame.bounded.instances()
@@ -109,14 +111,16 @@ class Collector(RuleCollector):
                    f"enlarge to at least {self.across_mm:.2f} mm.")
         highlight = (found["labels"] == i + 1) & ~frame.layer(k)
         layers = (int(round(base / frame.dz)), int(round((base + height) / frame.dz)) - 1)
-        return self._finding(frame, "across_z", message, height, self.across_mm, flat, k, highlight, count, layers)
+        listed = bounded_instances(frame, found, holes)
+        return self._finding(frame, "across_z", message, height, self.across_mm, flat, k, highlight, count, layers, listed)
 
-    def _finding(self, frame, kind, message, measured, limit, flat, k, highlight, count, layers):
+    def _finding(self, frame, kind, message, measured, limit, flat, k, highlight, count, layers, listed=()):
         name = f"{RULE}_{kind}.png"
         png = picture(frame, layer=k, flat=flat, highlight=highlight, half_px=4 * raster.limit_px(limit, frame.px),
-                      title=f"min_hole: layer {k}, z = {frame.z_mm(k):.2f} mm")
+                      title=f"{rule_label(RULE)}: layer {k}, z = {frame.z_mm(k):.2f} mm")
         finding = Finding(RULE, self.severity, message, measured=round(measured, 4), limit=limit, unit="mm",
-                          location_mm=frame.location(flat, k), layers=layers, count=count, picture=name)
+                          location_mm=frame.location(flat, k), layers=layers, count=count, picture=name,
+                          instances=listed)
         return finding, {name: png}
 
 

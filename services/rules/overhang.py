@@ -23,7 +23,7 @@ import math
 import cv2
 import numpy as np
 
-from services.findings import Finding
+from services.findings import Finding, rule_label
 from services.rules import raster
 from services.rules.common import RuleCollector, family_check, fmt_xyz, limit_mm, output, picture, severity_of
 from services.rules.scan import RunView
@@ -32,7 +32,7 @@ RULE = "overhang"
 FLAT_STEPS = 4.0  # a region reaching farther than this many self-supporting steps in one layer is a flat start
 
 
-check = family_check(RULE, "Return the overhang findings and the support-volume estimate.")
+check = family_check(RULE, lambda: Collector, "Return the overhang findings and the support-volume estimate.")
 
 
 def reach_px(printer, stack) -> float | None:
@@ -85,11 +85,13 @@ def _undersides(view: RunView, reach: float | None) -> dict | None:
     return out
 
 
-def _held_up(found: dict) -> np.ndarray:
-    """Return the new material that needs support: every new component with a loose or island pixel."""
-    new = found["new"]
+def _starts(found: dict, reach: float) -> np.ndarray:
+    """Return the new material that starts in mid-air: every new component holding an island or a flat start."""
+    new, regions = found["new"], found["regions"]
+    flat = found["reach"] > FLAT_STEPS * reach
+    flat[0] = False
     needs = np.zeros(int(new.max()) + 1, bool)
-    needs[new[(found["regions"] > 0) | (found["islands"] > 0)]] = True
+    needs[new[(found["islands"] > 0) | flat[regions]]] = True
     needs[0] = False
     return needs[new]
 
@@ -129,6 +131,7 @@ class Collector(RuleCollector):
         if self.missing(printer, "self-supporting angle and severity", self.severity is None or self.reach is None):
             return False
         self.support_mm3 = 0.0
+        self.columns_mm: np.ndarray | None = None  # plan view: empty height under sloped new material
         self.map: np.ndarray | None = None  # plan view: angle (deg) of the shallowest overhang per pixel
         self.layer_map: np.ndarray | None = None
         return True
@@ -138,7 +141,9 @@ class Collector(RuleCollector):
         if found is None:
             return
         r0, c0 = found["crop"]
-        self._support(view, _held_up(found), r0, c0)
+        starts = _starts(found, self.reach)
+        self._support(view, starts, r0, c0)
+        self._keep_columns(view, (found["new"] > 0) & ~starts, r0, c0)
         surface, angle = _slopes(found, self.reach, view.frame)
         if surface.any():
             self._record(view, surface, angle, r0, c0)
@@ -147,6 +152,19 @@ class Collector(RuleCollector):
         """Add the empty layers under each pixel needing support, down to material or the plate."""
         top = view.below.top_mm[r0:r0 + needs.shape[0], c0:c0 + needs.shape[1]][needs]
         self.support_mm3 += float(np.sum(view.z_lo - np.maximum(top, 0.0))) * view.frame.px ** 2
+
+    def _keep_columns(self, view: RunView, new: np.ndarray, r0: int, c0: int) -> None:
+        """Add, per plan pixel, the empty column under new material on a slope (counted in ``finish``).
+
+        A shallow surface is judged step by step with a pixel of tolerance, so some of its steps pass
+        alone; the support goes under the whole surface, so the columns are kept for every step and
+        summed over the surface's plan once it is known.
+        """
+        if self.columns_mm is None:
+            self.columns_mm = np.zeros(view.mask.shape, np.float32)
+        box = self.columns_mm[r0:r0 + new.shape[0], c0:c0 + new.shape[1]]
+        top = view.below.top_mm[r0:r0 + new.shape[0], c0:c0 + new.shape[1]][new]
+        box[new] += np.float32(view.z_lo) - np.maximum(top, np.float32(0.0))
 
     def _record(self, view: RunView, surface: np.ndarray, angle: np.ndarray, r0: int, c0: int) -> None:
         if self.map is None:
@@ -168,8 +186,11 @@ class Collector(RuleCollector):
             return output(list(self.notes), summary=summary)
         where_any = np.isfinite(self.map)
         # Steps of one surface that stood steep enough in some layers leave gaps of about one reach
-        # in plan: bridge them before counting surfaces.
-        count, labels = raster.label(raster.dilate_disk(where_any, 2 * int(math.ceil(self.reach + 1)) + 1), 8)
+        # in plan: bridge them before counting surfaces and their supports.
+        bridged = raster.dilate_disk(where_any, 2 * int(math.ceil(self.reach + 1)) + 1)
+        count, labels = raster.label(bridged, 8)
+        self.support_mm3 += float(self.columns_mm[bridged].sum(dtype=np.float64)) * frame.px ** 2
+        summary["support_volume_mm3"] = round(self.support_mm3, 3)
         area_mm2 = float(where_any.sum()) * frame.px ** 2
         summary["overhang_area_mm2"] = round(area_mm2, 3)
         flat = int(np.argmin(self.map))
@@ -190,7 +211,7 @@ class Collector(RuleCollector):
             highlight[r0:r0 + reg.shape[0], c0:c0 + reg.shape[1]] = reg > 0
         name = f"{RULE}.png"
         png = picture(frame, layer=k, flat=flat, highlight=highlight, half_px=40,
-                      title=f"overhang: layer {k}, z = {where[2]:.2f} mm")
+                      title=f"{rule_label(RULE)}: layer {k}, z = {where[2]:.2f} mm")
         region = self.layer_map[(labels == labels.ravel()[flat]) & where_any]
         finding = Finding(RULE, self.severity, message, measured=round(angle, 1), limit=self.angle, unit="deg",
                           location_mm=where, layers=(int(region.min()), int(region.max())), count=n, picture=name)

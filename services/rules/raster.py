@@ -164,39 +164,21 @@ def void_index(mask: np.ndarray, numbers: np.ndarray) -> np.ndarray:
     return np.flatnonzero(~mask.ravel())[numbers - 1]
 
 
-def ray_widths(mask: np.ndarray, rows: np.ndarray, cols: np.ndarray, near: np.ndarray, cap_px: int) -> np.ndarray:
-    """Return the width across ``mask`` through pixels (rows, cols), along the line from their nearest void.
-
-    ``near`` holds the flat index of each pixel's nearest void pixel. The width counts the pixels from
-    the near void to the far one, so a straight wall n pixels wide reads n at every pixel whatever
-    its parity; widths above ``cap_px`` come back as cap_px + 1.
-    """
-    ny, nx = mask.shape
-    vy, vx = np.divmod(near, nx)
-    dy, dx = (rows - vy).astype(np.float64), (cols - vx).astype(np.float64)
-    d_near = np.hypot(dy, dx)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        uy, ux = dy / d_near, dx / d_near
-    far = np.full(rows.shape, float(cap_px + 2))
-    going = np.arange(rows.size)
-    for t in range(1, cap_px + 2):
-        ry = np.rint(rows[going] + t * uy[going]).astype(np.int64)
-        rx = np.rint(cols[going] + t * ux[going]).astype(np.int64)
-        inside = (ry >= 0) & (ry < ny) & (rx >= 0) & (rx < nx)
-        solid = np.zeros(going.size, bool)
-        solid[inside] = mask[ry[inside], rx[inside]]
-        far[going[~solid]] = t
-        going = going[solid]  # keep marching only the rays still inside the material
-        if going.size == 0:
-            break
-    return np.minimum(d_near + far - 1.0, cap_px + 1.0)
-
-
 def label(mask: np.ndarray, connectivity: int = 8) -> tuple[int, np.ndarray]:
     """Return (number of labels including background 0, int32 labels)."""
     algorithm = cv2.CCL_BOLELLI if connectivity == 8 else cv2.CCL_SAUF  # the fastest measured here
     count, labels = cv2.connectedComponentsWithAlgorithm(mask.view(np.uint8), connectivity, cv2.CV_32S, algorithm)
     return int(count), labels
+
+
+def first_pixel(labels: np.ndarray, wanted: np.ndarray) -> np.ndarray:
+    """Return the flat index of the first pixel (row-major) of each wanted label; -1 for a label not present."""
+    pick = np.zeros(int(labels.max()) + 1, bool)
+    pick[wanted] = True
+    idx = np.flatnonzero(pick[labels.ravel()])
+    first = np.full(pick.size, -1, np.int64)
+    first[labels.ravel()[idx][::-1]] = idx[::-1]  # reversed so that the first pixel wins
+    return first[wanted]
 
 
 def per_label_max(values: np.ndarray, labels: np.ndarray, count: int, where: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

@@ -15,7 +15,7 @@ from functools import cached_property
 import cv2
 import numpy as np
 
-from services.rules import raster
+from services.rules import raster, thin
 
 _cache: dict = {}
 
@@ -204,6 +204,9 @@ class RunView:
         deep, at = raster.per_label_max(dist, sub, count, raster.ridge(dist, half))
         rows, cols = np.divmod(np.maximum(at, 0), half.shape[1])
         at = np.where(at >= 0, 2 * rows * self.mask.shape[1] + 2 * cols, -1)
+        unsampled = np.flatnonzero(at[1:] < 0) + 1
+        if unsampled.size:  # sections under two pixels across: point at one of their own pixels
+            at[unsampled] = raster.first_pixel(labels, unsampled)
         width = np.where(np.isfinite(deep), 4 * deep - 1, 1.5)
         width[0] = 0.0
         return width, at
@@ -305,15 +308,17 @@ def refine_width(mask: np.ndarray, flat: int, coarse_px: float) -> float:
     to its inscribed disk's) the width is the mean of that and its area-equivalent diameter: within
     about half a pixel for discs and squares.
     """
+    if not 0 <= int(flat) < mask.size:
+        raise ValueError(f"pixel {flat} lies outside a {mask.shape[0]} x {mask.shape[1]} layer")
     r, c = divmod(int(flat), mask.shape[1])
     reach = int(math.ceil(coarse_px)) + 4
-    r0, c0 = max(r - reach, 0), max(c - reach, 0)
-    crop = mask[r0:r + reach + 1, c0:c + reach + 1]
+    r0, r1, c0, c1 = thin.clamp_box(mask.shape, r, c, reach, reach)
+    crop = mask[r0:r1, c0:c1]
     fine = np.zeros((crop.shape[0] * 2 + 2, crop.shape[1] * 2 + 2), np.uint8)
     fine[1:-1, 1:-1] = np.repeat(np.repeat(crop, 2, axis=0), 2, axis=1)
     sub = cv2.distanceTransform(fine, cv2.DIST_L2, cv2.DIST_MASK_PRECISE)
-    y, x = 2 * (r - r0) + 1, 2 * (c - c0) + 1
-    inscribed = float(sub[y - 2:y + 4, x - 2:x + 4].max())
+    y0, y1, x0, x1 = thin.clamp_box(sub.shape, 2 * (r - r0) + 1, 2 * (c - c0) + 1, 2, 3)
+    inscribed = float(sub[y0:y1, x0:x1].max())  # the window is cut back at the edge, never empty
     _, labels = cv2.connectedComponents(crop.view(np.uint8), connectivity=8)
     own = labels == labels[r - r0, c - c0]
     if own[0].any() or own[-1].any() or own[:, 0].any() or own[:, -1].any():

@@ -21,7 +21,7 @@ import numpy as np
 from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components
 
-from services.findings import Finding
+from services.findings import Finding, rule_label
 from services.rules.common import RuleCollector, family_check, fmt_xyz, limit_mm, output, picture, severity_of
 from services.rules.scan import RunView
 
@@ -29,13 +29,17 @@ RULE = "trapped_volume"
 SPECK_PX = 4  # pockets under 4 pixels are specks where the pixel grid closes a diagonal, not cavities
 
 
-check = family_check(RULE)
+check = family_check(RULE, lambda: Collector)
 
 
 class Collector(RuleCollector):
     """Follow enclosed pockets up the stack and join them into cavities."""
 
     rule = RULE
+
+    def __init__(self, *, stack, part, printer) -> None:
+        self._part = part  # for the optical zone, read only if a cup is found
+        super().__init__(stack=stack, part=part, printer=printer)
 
     def start(self, limits: dict, *, stack, printer) -> bool:
         self.severity = severity_of(limits)
@@ -160,14 +164,41 @@ class Collector(RuleCollector):
         worst = int(np.flatnonzero(big)[np.argmax(largest[big])])
         node = _lowest(cavity, first, worst)
         k, flat, count = int(first[node]), int(at[node]), int(big.sum())
-        where = frame.location(flat, k)
         hole = f" of {self.drain_mm:g} mm or more" if self.drain_mm else ""
-        message = (f"{count} hollow{'s' if count > 1 else ''} open only away from the build plate will act as "
-                   f"suction cups against the vat film (the largest {largest[worst] * frame.px ** 2:.1f} mm2 in section); "
-                   f"add a vent hole{hole} near {fmt_xyz(where)} or turn the part so the opening faces the build plate.")
+        cup_text = (f"{count} hollow{'s' if count > 1 else ''} open only away from the build plate will act as "
+                    f"suction cups against the vat film (the largest {largest[worst] * frame.px ** 2:.1f} mm2 in "
+                    "section); ")
+        zone = self._optical_zone(frame)
+        outside = [] if zone is None else [i for i in np.flatnonzero(cavity == worst) if not zone.flat[int(at[i])]]
+        if zone is None:
+            fix = f"add a vent hole{hole} near {fmt_xyz(frame.location(flat, k))} or turn the part so the opening faces the build plate."
+        elif outside:
+            node = min(outside, key=lambda i: first[i])  # a vent in the mount ring, not through the optic
+            k, flat = int(first[node]), int(at[node])
+            fix = (f"add a vent hole{hole} near {fmt_xyz(frame.location(flat, k))}, in the mount outside the optical "
+                   "zone (never through the optic), or turn the part so the opening faces the build plate.")
+        else:
+            fix = (f"{'the largest' if count > 1 else 'it'} lies inside the optical zone, where a vent hole would "
+                   "cut the optic: turn the part so the "
+                   "opening faces the build plate (or print it on a process without a vat film).")
+        message = cup_text + fix
         mine = cavity == worst
         return self._finding(frame, self.cup_severity, "cup", message, float(largest[worst] * frame.px ** 2), "mm2",
                              flat, k, self._layers(mine), count)
+
+    def _optical_zone(self, frame) -> np.ndarray | None:
+        """Return a generated optic's optical zone on the frame's pixels (its clear aperture: inside its mount, or
+        its whole outline); None for an uploaded part, whose optic the check can only guess (a cup-shaped holder
+        would read as a thin optic), so its vent is placed where the cavity is."""
+        from services.optics.aperture import clear_aperture
+        from services.optics.grids import part_axis_mm
+
+        if not (self._part.parameters or {}).get("kind"):
+            return None
+        aperture = clear_aperture(frame.stack, axis_mm=part_axis_mm(self._part), parameters=self._part.parameters)
+        if not aperture.mask.any() or aperture.mask.shape != frame.stack.shape:
+            return None
+        return frame.pad_mask(aperture.mask)
 
     def _layers(self, mine: np.ndarray) -> tuple[int, int]:
         first, last = self._span
@@ -177,7 +208,7 @@ class Collector(RuleCollector):
         view = RunView(frame, -1, k, k, frame.layer(k), None, None)
         name = f"{RULE}_{kind}.png"
         png = picture(frame, layer=k, flat=flat, highlight=view.enclosed, half_px=200,
-                      title=f"trapped_volume: layer {k}, z = {frame.z_mm(k):.2f} mm")
+                      title=f"{rule_label(RULE)}: layer {k}, z = {frame.z_mm(k):.2f} mm")
         finding = Finding(RULE, severity, message, measured=round(measured, 3), unit=unit,
                           location_mm=frame.location(flat, k), layers=layers, count=count, picture=name)
         return finding, {name: png}

@@ -88,6 +88,34 @@ def model_xml(v: np.ndarray, f: np.ndarray, *, unit: str, prolog: str = "") -> b
             '</mesh></object></resources><build><item objectid="1"/></build></model>').encode()
 
 
+def assembly_xml(meshes: dict[str, tuple[np.ndarray, np.ndarray]], assemblies: dict[str, list[tuple[str, str | None]]],
+                 items: list[tuple[str, str | None]], *, unit: str = "millimeter") -> bytes:
+    """Encode a 3MF model of mesh objects, component objects (child id, transform) and build items."""
+    def transform(t: str | None) -> str:
+        return f' transform="{t}"' if t else ""
+
+    objects = []
+    for oid, (v, f) in meshes.items():
+        verts = "".join(f'<vertex x="{x:g}" y="{y:g}" z="{z:g}"/>' for x, y, z in v)
+        tris = "".join(f'<triangle v1="{a}" v2="{b}" v3="{c}"/>' for a, b, c in f)
+        objects.append(f'<object id="{oid}" type="model"><mesh><vertices>{verts}</vertices><triangles>{tris}'
+                       "</triangles></mesh></object>")
+    for oid, comps in assemblies.items():
+        inner = "".join(f'<component objectid="{c}"{transform(t)}/>' for c, t in comps)
+        objects.append(f'<object id="{oid}" type="model"><components>{inner}</components></object>')
+    build = "".join(f'<item objectid="{o}"{transform(t)}/>' for o, t in items)
+    return (f'<?xml version="1.0" encoding="UTF-8"?>\n<model unit="{unit}" xmlns="{CORE_NS}"><resources>'
+            f'{"".join(objects)}</resources><build>{build}</build></model>').encode()
+
+
+def fan_out_3mf(components: int, *, side_mm: float = 0.5, pitch_mm: float = 1.0) -> bytes:
+    """Return a 3MF whose one assembly places one cube ``components`` times on a square grid."""
+    per_row = int(components**0.5) + 1
+    comps = [("1", f"1 0 0 0 1 0 0 0 1 {(i % per_row) * pitch_mm:g} {(i // per_row) * pitch_mm:g} 0")
+             for i in range(components)]
+    return package(assembly_xml({"1": cube(side_mm)}, {"2": comps}, [("2", None)]))
+
+
 def zip_bytes(members: dict[str, bytes]) -> bytes:
     """Return a deflated ZIP of the members, with fixed timestamps."""
     buf = io.BytesIO()

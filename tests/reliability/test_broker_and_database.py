@@ -25,10 +25,18 @@ def _counts(checks) -> dict:
 
 
 def _all_ended(checks, *, maintenance_stale_s: int | None = None) -> bool:
-    """Return True once every check ended; meanwhile run the maintenance job as the timer would."""
+    """Return True once every check ended; meanwhile sweep as the sweeper service would."""
     if maintenance_stale_s:
         check_requeue_stale(stale_after_s=maintenance_stale_s)
     return Check.objects.filter(pk__in=[c.pk for c in checks], status__in=("queued", "running")).count() == 0
+
+
+def _states(checks) -> str:
+    """Return each check's status, stage, attempts and heartbeat, for a failure message."""
+    rows = Check.objects.filter(pk__in=[c.pk for c in checks]).order_by("pk").values_list(
+        "pk", "status", "stage", "attempts", "heartbeat_at")
+    return "; ".join(f"{pk} {status}/{stage} x{attempts} beat {beat:%H:%M:%S}" if beat else
+                     f"{pk} {status}/{stage} x{attempts} no beat" for pk, status, stage, attempts, beat in rows)
 
 
 def test_a_redis_restart_loses_no_check(alice, seeded, redis):
@@ -38,8 +46,11 @@ def test_a_redis_restart_loses_no_check(alice, seeded, redis):
         wait_until(lambda: _counts(checks).get("running", 0) >= 1 and _counts(checks).get("queued", 0) >= 3,
                    timeout_s=120, what="checks both running and queued")
         redis.restart()
-        wait_until(lambda: _all_ended(checks, maintenance_stale_s=60), timeout_s=300, every_s=1,
-                   what="every check ending after the restart")
+        try:
+            wait_until(lambda: _all_ended(checks, maintenance_stale_s=60), timeout_s=300, every_s=1,
+                       what="every check ending after the restart")
+        except AssertionError as exc:
+            raise AssertionError(f"{exc}: {_states(checks)}") from None
         assert a.poll() is None and b.poll() is None
     for check in checks:
         assert_one_report(check)

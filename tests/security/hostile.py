@@ -20,8 +20,8 @@ from typing import Callable
 
 import numpy as np
 
-from tests.data.make_files import (CONTENT_TYPES, CORE_NS, RELS, billion_laughs, cube, lying_zip, model_xml, obj,
-                                   package, ply_binary, stl_ascii, stl_binary, zip_bytes)
+from tests.data.make_files import (CONTENT_TYPES, CORE_NS, RELS, assembly_xml, billion_laughs, cube, fan_out_3mf,
+                                   lying_zip, model_xml, obj, package, ply_binary, stl_ascii, stl_binary, zip_bytes)
 
 ROOT = Path(__file__).resolve().parents[2]
 DOC = ROOT / "docs" / "security.md"
@@ -128,6 +128,40 @@ def _ply_header(vertices: int, faces: int, body: bytes = b"") -> bytes:
             "property list uchar int vertex_indices\nend_header\n").encode() + body
 
 
+def _assembly(assemblies: dict, root: str) -> bytes:
+    return package(assembly_xml({"1": _cube()}, assemblies, [(root, None)]))
+
+
+def _component_cycle() -> bytes:
+    return _assembly({"2": [("1", None), ("3", None)], "3": [("2", "1 0 0 0 1 0 0 0 1 30 0 0")]}, "2")
+
+
+def _component_fan_out(width: int = 10, levels: int = 6) -> bytes:
+    # Each level places the one below ten times: 12 x 10^6 triangles from a file of a few kilobytes.
+    shifts = [f"1 0 0 0 1 0 0 0 1 {30 * i} 0 0" for i in range(width)]
+    tree = {str(k): [(str(k - 1), t) for t in shifts] for k in range(2, levels + 2)}
+    return _assembly(tree, str(levels + 1))
+
+
+def _deep_components(levels: int = 40) -> bytes:
+    return _assembly({str(k): [(str(k - 1), None)] for k in range(2, levels + 2)}, str(levels + 1))
+
+
+def _case_twins() -> bytes:
+    v, f = _cube()
+    return zip_bytes({"[Content_Types].xml": CONTENT_TYPES, "_rels/.rels": RELS,
+                      "3D/3dmodel.model": model_xml(v, f, unit="millimeter"),
+                      "3D/3DModel.model": model_xml(v, f, unit="inch")})
+
+
+def _ascii_ply(faces_declared: int, faces_held: int, fmt: str = "ascii") -> bytes:
+    v, f = _cube()
+    header = (f"ply\nformat {fmt} 1.0\nelement vertex {len(v)}\nproperty float x\nproperty float y\n"
+              f"property float z\nelement face {faces_declared}\nproperty list uchar int vertex_indices\nend_header\n")
+    rows = "".join(f"{x:g} {y:g} {z:g}\n" for x, y, z in v) + "".join(f"3 {a} {b} {c}\n" for a, b, c in f[:faces_held])
+    return (header + rows).encode()
+
+
 def _png() -> bytes:
     from PIL import Image
 
@@ -180,6 +214,15 @@ HOSTILE: tuple[Hostile, ...] = (
     Hostile("deep-nesting.3mf", "XML nested 20,000 elements deep", _deep_xml),
     Hostile("malformed-xml.3mf", "a model document that is not well-formed XML", lambda: package(b"<model><resources>")),
     Hostile("bad-vertex-index.3mf", "a triangle naming a vertex that does not exist", _bad_vertex_index),
+    # 3MF components (each counted and capped before anything is expanded)
+    Hostile("component-cycle.3mf", "an object that contains itself through its components", _component_cycle),
+    Hostile("component-fan-out.3mf", "six levels of ten components: 12 million triangles from a few kB",
+            _component_fan_out),
+    Hostile("component-flood.3mf", "100,001 components of one cube", lambda: fan_out_3mf(100_001)),
+    Hostile("component-depth.3mf", "components nested 40 levels deep", _deep_components),
+    Hostile("missing-object.3mf", "a component naming an object the model does not define",
+            lambda: _assembly({"2": [("1", None), ("9", None)]}, "2")),
+    Hostile("case-twins.3mf", "two model parts whose names differ only in case, with different units", _case_twins),
     # STL
     Hostile("lying-header.stl", "binary STL header claims 1,200 triangles, holds 12", lambda: _stl(count=1200)),
     Hostile("header-zero.stl", "binary STL header claims 0 triangles, holds 12", lambda: _stl(count=0)),
@@ -213,6 +256,12 @@ HOSTILE: tuple[Hostile, ...] = (
     Hostile("four-billion-vertices.ply", "a PLY header declaring 4 billion vertices, then nothing",
             lambda: _ply_header(4_000_000_000, 1)),
     Hostile("bare-header.ply", "a PLY header and no data", lambda: _ply_header(3, 1)[:-1]),
+    Hostile("zero-index.obj", "an OBJ face naming vertex 0 (OBJ counts from 1)",
+            lambda: b"v 0 0 0\nv 1 0 0\nv 0 1 0\nv 0 0 1\nf 0 1 2\nf 1 2 3\n"),
+    Hostile("tabs.obj", "an OBJ cube whose fields are separated by tabs", lambda: obj(*_cube()).replace(b" ", b"\t")),
+    Hostile("short-rows.ply", "an ASCII PLY declaring 12 faces that holds 6", lambda: _ascii_ply(12, 6)),
+    Hostile("middle-endian.ply", "a PLY in format binary_middle_endian", lambda: _ascii_ply(12, 12, "binary_middle_endian")),
+    Hostile("stray-byte.stl", "a binary STL with one stray byte after its last triangle", lambda: _stl() + b"\n"),
     # Hostile names on good content (the web layer stores under a generated name)
     Hostile("../../etc/passwd.stl", "a path-traversal upload name", _stl),
     Hostile("C:\\Windows\\system32\\lens.stl", "a Windows path as upload name", _stl),

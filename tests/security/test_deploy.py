@@ -66,6 +66,9 @@ def test_the_example_environment_gives_the_production_settings(tmp_path):
     ({"PHASEWRIGHT_CHECK_SOFT_LIMIT_S": "700"}, "PHASEWRIGHT_CHECK_SOFT_LIMIT_S must be below"),
     ({"PHASEWRIGHT_VISIBILITY_TIMEOUT_S": "600"}, "PHASEWRIGHT_VISIBILITY_TIMEOUT_S must exceed"),
     ({"PHASEWRIGHT_STORAGE": "s3"}, "PHASEWRIGHT_S3_BUCKET must name the bucket"),
+    ({"PHASEWRIGHT_STALE_AFTER_S": "20"}, "PHASEWRIGHT_STALE_AFTER_S must be at least 3 x PHASEWRIGHT_HEARTBEAT_S"),
+    ({"PHASEWRIGHT_HEARTBEAT_S": "0"}, "PHASEWRIGHT_STALE_AFTER_S must be at least 3 x PHASEWRIGHT_HEARTBEAT_S"),
+    ({"PHASEWRIGHT_SWEEP_EVERY_S": "0"}, "PHASEWRIGHT_SWEEP_EVERY_S must be above 0"),
 ])
 def test_a_bad_setting_stops_the_start_with_a_sentence(tmp_path, change, sentence):
     """Nothing is guessed: a malformed or unsafe value ends the start, naming the variable."""
@@ -107,15 +110,25 @@ def test_the_proxy_serves_static_files_but_never_the_private_storage(tmp_path):
     assert env["PHASEWRIGHT_STORAGE_DIR"] not in _nginx_conf()
 
 
-def test_the_worker_units_wait_for_a_running_check_and_the_timer_runs_the_maintenance_job():
-    """A stopped worker may finish its check (TimeoutStopSec > the hard limit); the job runs every minute."""
+def test_the_worker_units_wait_for_a_running_check_and_the_sweeper_runs_as_a_service():
+    """A stopped worker may finish its check (TimeoutStopSec > the hard limit); the sweeper runs every 15 s, always."""
     worker = (DEPLOY / "systemd" / "phasewright-worker@.service").read_text()
     [stop_s] = re.findall(r"^TimeoutStopSec=(\d+)", worker, re.M)
     hard_s = int(re.search(r"^PHASEWRIGHT_CHECK_HARD_LIMIT_S=(\d+)", (DEPLOY / "env.example").read_text(), re.M)[1])
-    assert int(stop_s) > hard_s and "--concurrency 1" in worker
+    assert int(stop_s) > hard_s and "--concurrency 1" in worker and "Restart=always" in worker
     service = (DEPLOY / "systemd" / "phasewright-maintenance.service").read_text()
-    assert "manage.py requeue_stale_checks" in service
-    assert "OnUnitActiveSec=1min" in (DEPLOY / "systemd" / "phasewright-maintenance.timer").read_text()
+    assert "manage.py requeue_stale_checks --every-s 15" in service
+    assert re.search(r"^Type=simple$", service, re.M) and re.search(r"^Restart=always$", service, re.M)
+    assert not (DEPLOY / "systemd" / "phasewright-maintenance.timer").exists()
+    assert "requeue_stale_checks --every-s" in (DEPLOY / "single-host.sh").read_text()
+
+
+def test_single_host_starts_redis_with_the_durable_configuration():
+    """The Redis single-host.sh starts reads redis-phasewright.conf: append-only, fsync every second, no eviction."""
+    conf = dict(line.split(None, 1) for line in (DEPLOY / "redis-phasewright.conf").read_text().splitlines()
+                if line.strip() and not line.startswith("#"))
+    assert (conf["appendonly"], conf["appendfsync"], conf["maxmemory-policy"]) == ("yes", "everysec", "noeviction")
+    assert 'redis-server "$ROOT/deploy/redis-phasewright.conf"' in (DEPLOY / "single-host.sh").read_text()
 
 
 def test_gunicorn_accepts_its_configuration(tmp_path):
@@ -168,3 +181,15 @@ def test_a_real_nginx_refuses_an_oversized_upload_with_our_configuration(tmp_pat
     finally:
         proc.terminate()
         proc.wait(timeout=20)
+
+
+def test_the_guide_states_the_defaults_the_settings_use():
+    """Every `PHASEWRIGHT_...` (N) in deploy/README.md is the effective default of that setting."""
+    from django.conf import settings
+
+    setting_of = {"PHASEWRIGHT_WORKER_MAX_MEMORY_KIB": "CELERY_WORKER_MAX_MEMORY_PER_CHILD"}
+    stated = re.findall(r"`(PHASEWRIGHT_\w+)` \((\d+)", (DEPLOY / "README.md").read_text())
+    assert len(stated) >= 3
+    for name, value in stated:
+        assert name not in os.environ, f"{name} is set in this test run's environment"
+        assert getattr(settings, setting_of.get(name, name)) == int(value), name

@@ -83,3 +83,25 @@ def test_the_throttle_counts_in_the_cache_it_is_given():
     assert throttle.blocked(username="a", address="y") and not throttle.blocked(username="b", address="y")
     throttle.failed(username="b", address="x")
     assert throttle.blocked(username="c", address="x")
+
+
+@pytest.mark.parametrize("look_alike", ["\uff41\uff4c\uff49\uff43\uff45",           # full-width letters
+                                        "\U0001d41a\U0001d425\U0001d422\U0001d41c\U0001d41e",  # mathematical bold
+                                        "\u00aalice",                             # feminine ordinal mark
+                                        "ALICE"])                                 # case
+def test_look_alike_names_count_against_the_same_account(alice, settings, look_alike):
+    """The sign-in form reads look-alikes as 'alice' (NFKC, Unicode TR15), so their failures count for alice.
+
+    Reference: unicodedata.normalize("NFKC", ...) from the Python standard library maps each of
+    these to plain letters, as Django's UsernameField does before the password is checked.
+    """
+    import unicodedata
+
+    assert unicodedata.normalize("NFKC", look_alike).casefold() == "alice"
+    _sign_in("alice", "wrong-password")
+    for _ in range(settings.PHASEWRIGHT_LOGIN_FAILURES_PER_USER - 1):
+        response, _ = _sign_in(look_alike, "wrong-password")
+        assert response.status_code == 200
+    response, _ = _sign_in(look_alike, "alice-password-1")
+    assert response.status_code == 429
+    assert _sign_in("alice", "alice-password-1")[0].status_code == 429

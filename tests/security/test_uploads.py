@@ -96,3 +96,85 @@ def test_a_report_file_is_downloaded_only_through_the_owner_checked_view(alice_c
     mine = alice_client.get(url)
     assert mine.status_code == 200 and mine["X-Content-Type-Options"] == "nosniff"
     assert charlie_client.get(url).status_code == 404
+
+
+def _many(client, names: list[str], django_capture_on_commit_callbacks):
+    form = {**_form(box_stl()), "file": [SimpleUploadedFile(name, box_stl()) for name in names]}
+    return _post(client, form, django_capture_on_commit_callbacks)
+
+
+def test_a_batch_over_the_active_cap_stores_only_what_it_queues(alice_client, seeded, settings,
+                                                                django_capture_on_commit_callbacks):
+    """Four files with room for two checks: two designs stored and queued, the other two named and not stored."""
+    settings.PHASEWRIGHT_MAX_ACTIVE_CHECKS = 2
+    folder = Path(settings.STORAGE_DIR) / "designs"
+    before = set(folder.iterdir()) if folder.exists() else set()
+    response = _many(alice_client, ["a.stl", "b.stl", "c.stl", "d.stl"], django_capture_on_commit_callbacks)
+    page = response.content.decode()
+    assert response.status_code == 400
+    assert "c.stl: not stored; you have 2 checks waiting or running" in page and "d.stl: not stored" in page
+    assert "2 of the files were stored and queued" in page
+    assert Design.objects.count() == Check.objects.count() == 2
+    assert sorted(Design.objects.values_list("name", flat=True)) == ["a.stl", "b.stl"]
+    assert set(folder.iterdir()) - before == {folder / Path(d.stored_name).name for d in Design.objects.all()}
+
+
+def test_each_user_has_a_storage_quota(alice_client, charlie_client, seeded, settings,
+                                       django_capture_on_commit_callbacks):
+    """With room for two files, the third of a batch is refused by name with the sizes; charlie's own quota is untouched."""
+    size = len(box_stl())
+    settings.PHASEWRIGHT_STORAGE_QUOTA_BYTES = 2 * size + size // 2
+    response = _many(alice_client, ["a.stl", "b.stl", "c.stl"], django_capture_on_commit_callbacks)
+    page = response.content.decode()
+    assert response.status_code == 400 and "c.stl: not stored; your designs take" in page
+    assert "over the" in page and "storage quota" in page
+    assert Design.objects.filter(owner__username="alice").count() == Check.objects.count() == 2
+    assert _post(charlie_client, _form(box_stl()), django_capture_on_commit_callbacks).status_code == 302
+
+
+def test_the_storage_quota_is_two_gib_unless_set():
+    """The effective default, not the line: 2 GiB."""
+    assert settings.PHASEWRIGHT_STORAGE_QUOTA_BYTES == 2 * 2**30
+
+
+def test_a_size_over_the_limit_is_said_with_real_sizes(alice_client, seeded, settings,
+                                                       django_capture_on_commit_callbacks):
+    """One byte over: the sentence gives both sizes exactly, never 'N MB is over the N MB limit'."""
+    data = box_stl()
+    settings.PHASEWRIGHT_MAX_UPLOAD_BYTES = len(data) - 1
+    page = _post(alice_client, _form(data), django_capture_on_commit_callbacks).content.decode()
+    assert f"box.stl: {len(data):,} bytes is over the {len(data) - 1:,}-byte limit." in page
+
+
+def test_a_design_whose_check_is_refused_at_the_last_moment_is_not_kept(alice, seeded, settings):
+    """When queueing fails after the file was stored (another upload took the last slot), row and file both go."""
+    from unittest import mock
+
+    from services.settings import CheckSettings
+    from webapp.catalogue.models import Material, Printer
+    from webapp.checks import services
+
+    upload = SimpleUploadedFile("late.stl", box_stl())
+    refusal = services.ApplicationError("too_many_checks", "You have 20 checks waiting or running.", status=429)
+    folder = Path(settings.STORAGE_DIR) / "designs"
+    before = set(folder.iterdir()) if folder.exists() else set()
+    with mock.patch.object(services, "check_create", side_effect=refusal):
+        created, refused = services.uploads_check_create(
+            owner=alice, uploads=[upload], printer=Printer.objects.get(slug="bay1-lcd-resin"),
+            material=Material.objects.get(slug="standard-resin"), check_settings=CheckSettings())
+    assert created == [] and refused == ["You have 20 checks waiting or running."]
+    assert not Design.objects.exists() and set(folder.iterdir()) == before
+
+
+def test_the_api_refuses_an_upload_over_the_quota(alice, settings):
+    """The API answers 413 with the code over_quota and stores nothing."""
+    from webapp.api.services import api_token_create
+
+    settings.PHASEWRIGHT_STORAGE_QUOTA_BYTES = len(box_stl()) - 1
+    token = api_token_create(user=alice, name="script")[1]
+    from django.test import Client
+
+    response = Client().post("/api/v1/designs", {"file": SimpleUploadedFile("box.stl", box_stl()), "units": "mm"},
+                             headers={"Authorization": f"Bearer {token}"})
+    assert response.status_code == 413 and response.json()["code"] == "over_quota"
+    assert "storage quota" in response.json()["message"] and not Design.objects.exists()

@@ -16,8 +16,8 @@ from pathlib import Path
 
 import pytest
 
-from services import batch
-from services.batch import BatchOptions, Client, run_batch
+from services.cli import batch
+from services.cli.batch import BatchOptions, Client, run_batch
 from services.cli import main
 from services.errors import UnusableInput
 
@@ -89,7 +89,8 @@ class FakeApi:
         check_id = "c-" + request["design"][2:] + "-" + str(request["quantities"][0])
         created = check_id not in self.checks
         if created:
-            self.checks[check_id] = {"design": request["design"], "polls": 0}
+            self.checks[check_id] = {"design": request["design"], "polls": 0,
+                                     "requirements": request.get("requirements")}
         return self._json(201 if created else 200, self._check(check_id))
 
     def _poll(self, check_id):
@@ -109,7 +110,9 @@ class FakeApi:
         if outcome is None:
             return {**base, "status": "failed", "error": "The file is not a mesh."}
         verdict, blockers, cautions = outcome
-        summary = {"verdict": verdict, "blockers": blockers, "cautions": cautions, "material_ml": 1.5,
+        # The fake holds every stated set of targets missed; the real judgement is the server's.
+        summary = {"verdict": verdict, "meets_requirements": "no" if state["requirements"] else "not_stated",
+                   "blockers": blockers, "cautions": cautions, "material_ml": 1.5,
                    "print_time_s": 5400.0, "currency": "EUR", "cost_per_part": 12.5,
                    "quote": [{"quantity": 1, "total": 12.5, "per_part": 12.5}]}
         return {**base, "status": "done", "progress": 1.0, "summary": summary}
@@ -193,6 +196,19 @@ def test_it_writes_json_when_asked(folder, tmp_path):
     rows = json.loads(out.read_text())
     assert [r["file"] for r in rows] == ["a-good.stl", "b-caution.STL", "c-noise.obj"]
     assert rows[0]["verdict"] == "printable" and rows[0]["material_ml"] == 1.5
+
+
+def test_requirements_travel_with_each_check_and_come_back_as_a_column(folder, tmp_path):
+    """--max-thickness-mm reaches the check request; the server's answer fills meets_requirements in the CSV."""
+    fake, out = FakeApi(), tmp_path / "summary.csv"
+    opts = _opts(requirements={"max_thickness_mm": 1.0})
+    rows, _ = run_batch(folder, opts, out=out, client=_client(fake), stream=io.StringIO(), tty=False)
+    with out.open() as fh:
+        table = list(csv.DictReader(fh))
+    assert [r["meets_requirements"] for r in table] == ["no", "no", ""]
+    assert all(c["requirements"] == {"max_thickness_mm": 1.0} for c in fake.checks.values())
+    header, first = batch.format_table(rows).splitlines()[:2]
+    assert header.split()[2] == "meets" and first.split()[2] == "no"
 
 
 def test_it_retries_network_errors_and_5xx_with_growing_waits(tmp_path):

@@ -24,7 +24,8 @@ def test_it_prints_one_report_object_for_one_path(box_path, capsys):
     assert main(["check", str(box_path), *CHECK, "--format", "json"]) == 0
     report = json.loads(capsys.readouterr().out)
     assert report["schema"] == "phasewright.report/1"
-    assert report["verdict"] in ("printable", "printable_with_cautions", "not_printable")
+    # A solid box standing on the plate has no thin part, gap, hole, overhang, island or cavity: printable.
+    assert report["verdict"] == "printable" and report["findings"] == []
     assert report["printer"]["slug"] == "bay1-lcd-resin" and report["material"]["slug"] == "standard-resin"
     # 10 x 8 x 2 mm box: 160 mm3, and its bounding box, computed by hand.
     assert report["design"]["bbox_mm"] == [10.0, 8.0, 2.0]
@@ -78,3 +79,100 @@ def test_it_reads_frequency_ranges():
     assert parse_freqs("140") == (140.0,) and parse_freqs("90,140") == (90.0, 140.0)
     with pytest.raises(UnusableInput):
         parse_freqs("a:b")
+
+
+def test_check_has_the_workers_memory_and_time_limits_by_default():
+    """--memory-limit-mib and --time-limit-s default to the worker's bounds (services.limits)."""
+    from services import limits
+    from services.cli import build_parser
+
+    args = build_parser().parse_args(["check", "x.stl"])
+    assert (args.memory_limit_mib, args.time_limit_s) == (limits.DEFAULT_MEMORY_MIB, limits.DEFAULT_TIME_LIMIT_S)
+    assert (limits.DEFAULT_MEMORY_MIB, limits.DEFAULT_TIME_LIMIT_S) == (4096, 600)
+
+
+def test_a_check_past_its_time_limit_ends_with_a_sentence_naming_it(box_path, monkeypatch, capsys):
+    """A file whose check outlasts --time-limit-s 1 is an error naming the limit; the next file is still read."""
+    import time
+
+    from services import checking
+
+    real = checking.check_file
+
+    def slow_for_the_first(path, **kwargs):
+        if path.endswith("slow.stl"):
+            time.sleep(5)
+        return real(path, **kwargs)
+
+    slow, noise = box_path.parent / "slow.stl", box_path.parent / "noise.stl"
+    slow.write_bytes(box_path.read_bytes())
+    noise.write_bytes(b"\x13\x37" * 500)  # refused at once, so the loop's going on is seen without timing a check
+    monkeypatch.setattr(checking, "check_file", slow_for_the_first)
+    t0 = time.monotonic()
+    assert main(["check", str(slow), str(noise), *CHECK, "--time-limit-s", "1", "--format", "json"]) == 2
+    assert time.monotonic() - t0 < 4.5
+    first, second = json.loads(capsys.readouterr().out)
+    assert first["code"] == "time_limit" and first["error"].startswith("slow.stl: the check reached its time limit (1 s)")
+    assert "--time-limit-s" in first["error"] and second["code"] == "stl_count_mismatch"
+
+
+def test_a_check_past_its_memory_limit_ends_with_a_sentence_naming_it(box_path, monkeypatch, capsys):
+    """Under --memory-limit-mib 64 a 512 MiB allocation fails: an error naming the limit, not a crash."""
+    import numpy as np
+
+    from services import checking
+
+    def greedy(path, **kwargs):
+        return np.ones(64 * 2**20)  # 512 MiB of float64, past the 64 MiB headroom
+
+    monkeypatch.setattr(checking, "check_file", greedy)
+    assert main(["check", str(box_path), *CHECK, "--memory-limit-mib", "64", "--format", "json"]) == 2
+    result = json.loads(capsys.readouterr().out)
+    assert result["code"] == "memory_limit"
+    assert result["error"].startswith("box.stl: the check reached its memory limit (64 MiB)")
+
+
+def test_it_takes_a_clear_aperture(box_path, capsys):
+    """--clear-aperture-mm is the optical zone the optics use, and the report says it was given (a 6 mm disc
+    inside the 10 x 8 mm box: pi 3^2 = 28.3 mm2, computed by hand)."""
+    assert main(["check", str(box_path), *CHECK, "--clear-aperture-mm", "6", "--format", "json"]) == 0
+    zone = json.loads(capsys.readouterr().out)["optics"]["clear_aperture"]
+    assert zone["how"] == "given" and zone["area_mm2"] == pytest.approx(28.27, rel=0.02)
+
+
+@pytest.mark.parametrize("flag, concurrent", [([], True), (["--sequential-stages"], False)])
+def test_sequential_stages_runs_rules_and_optics_one_after_the_other(box_path, monkeypatch, capsys, flag, concurrent):
+    """The check runs rules beside optics unless --sequential-stages is given."""
+    from services import checking
+
+    real, asked = checking.build_report, []
+
+    def recording(**kwargs):
+        asked.append(kwargs["concurrent_stages"])
+        return real(**kwargs)
+
+    monkeypatch.setattr(checking, "build_report", recording)
+    assert main(["check", str(box_path), *CHECK, *flag, "--format", "json"]) == 0
+    assert asked == [concurrent]
+
+
+def test_a_time_limit_while_rules_and_optics_run_side_by_side_stops_both(box_path, monkeypatch, capsys):
+    """The alarm reaches the waiting main thread: both stage threads stop, and the error names the limit."""
+    import threading
+    import time
+
+    from services import report
+
+    def endless_optics(part, stack, printer, material, settings, progress=None):
+        while True:  # reports progress as the real stage does, so it can be told to stop
+            time.sleep(0.01)
+            progress(0.5)
+
+    def endless_rules(*, stack, part, printer, progress=None):
+        endless_optics(part, stack, printer, None, None, progress)
+
+    monkeypatch.setattr(report, "_optics", endless_optics)
+    monkeypatch.setattr(report, "run_rules", endless_rules)
+    assert main(["check", str(box_path), *CHECK, "--time-limit-s", "1", "--format", "json"]) == 2
+    assert json.loads(capsys.readouterr().out)["code"] == "time_limit"
+    assert not [t for t in threading.enumerate() if t.name.startswith("phasewright-stage")]

@@ -36,3 +36,19 @@ def test_bad_parameters_exit_2_with_a_sentence(tmp_path, capsys):
     assert main(["generate", "spiral", "--diameter-mm", "30", "--freq-ghz", "150", "--charge", "0",
                  "-o", str(out), *COMMON]) == 2
     assert "charge" in capsys.readouterr().err and not out.exists()
+
+
+def test_every_generate_help_reads_as_words(capsys):
+    """No option's help leaks argparse internals (a literal % in a help text) or says "(default None)"."""
+    import pytest
+
+    from services.components import KINDS
+
+    for kind in KINDS:
+        with pytest.raises(SystemExit):
+            main(["generate", kind, "--help"])
+        text = capsys.readouterr().out
+        assert "option_strings" not in text and "(default None)" not in text, kind
+    with pytest.raises(SystemExit):
+        main(["generate", "window", "--help"])
+    assert "below 1 % across the band" in " ".join(capsys.readouterr().out.split())

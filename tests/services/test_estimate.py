@@ -13,6 +13,9 @@ import math
 import numpy as np
 import pytest
 import trimesh
+from scipy.optimize import minimize_scalar
+from scipy.special import huber
+from scipy.stats import median_abs_deviation
 
 from services import catalogue
 from services.errors import UnusableInput
@@ -345,34 +348,96 @@ def test_packed_footprints_do_not_overlap_and_stay_on_the_plate(plate, rect, spa
 # --- Calibration --------------------------------------------------------------------------------
 
 def test_calibration_recovers_a_known_correction():
-    """Logs made from a known factor with 3 % scatter give the factor back within 2 % (least squares)."""
+    """Logs made from a known factor with 3 % scatter give the factor back within 2 %."""
     rng = np.random.default_rng(20240611)
     estimated = rng.uniform(600.0, 36_000.0, 40)
     actual = 1.23 * estimated * (1 + rng.normal(0.0, 0.03, 40))
     cal = fit_calibration(list(zip(estimated.tolist(), actual.tolist())))
     assert cal.factor == pytest.approx(1.23, rel=0.02)
-    assert cal.count == 40 and 0.01 < cal.spread < 0.06
+    assert cal.count == 40 and 0.01 < cal.spread < 0.06 and cal.applies
+
+
+def test_calibration_is_the_huber_location_of_the_log_ratios():
+    """The factor is exp of the Huber location of ln(actual/estimated) with k = 1.345 and MAD scale.
+
+    References: Huber 1964 (the M-estimate minimises sum rho_k((x - mu) / s)), computed here with
+    scipy.special.huber and scipy.optimize.minimize_scalar; the scale is scipy.stats'
+    median_abs_deviation(scale="normal").
+    """
+    rng = np.random.default_rng(11)
+    estimated = rng.uniform(600.0, 20_000.0, 25)
+    # Heavy-tailed scatter (Student t, 3 dof) so that the Huber clipping matters.
+    actual = 1.3 * estimated * np.exp(0.05 * rng.standard_t(3, 25))
+    x = np.log(actual / estimated)
+    z = 0.6745 * (x - np.median(x)) / median_abs_deviation(x)
+    kept = x[np.abs(z) <= 3.5]
+    s = median_abs_deviation(kept, scale="normal")
+    ref = minimize_scalar(lambda mu: float(np.sum(huber(1.345 * s, kept - mu))),
+                          bounds=(kept.min(), kept.max()), method="bounded", options={"xatol": 1e-12}).x
+    cal = fit_calibration(list(zip(estimated.tolist(), actual.tolist())))
+    assert cal.count == kept.size
+    assert math.log(cal.factor) == pytest.approx(ref, abs=1e-7)
+
+
+def test_one_absurd_log_is_left_out_with_its_reason():
+    """A 2 h print against a 14 min estimate among logs near x 1.27 is an outlier: the factor stays.
+
+    Reference: Iglewicz & Hoaglin 1993, modified z-score 0.6745 (x - median) / MAD > 3.5, computed
+    here with scipy.stats.median_abs_deviation.
+    """
+    normal = [(e, 1.27 * e * (1 + d)) for e, d in ((1800.0, 0.04), (3600.0, -0.05), (5400.0, 0.0),
+                                                    (7200.0, 0.03), (2700.0, -0.02))]
+    without = fit_calibration(normal)
+    with_it = fit_calibration(normal + [(840.0, 7200.0)])
+    x = np.log([a / e for e, a in normal + [(840.0, 7200.0)]])
+    z = 0.6745 * (x[-1] - np.median(x)) / median_abs_deviation(x)
+    assert z > 3.5
+    assert [o.index for o in with_it.outliers] == [5] and with_it.outliers[0].z_score == pytest.approx(z)
+    assert "8.57 × its estimate" in with_it.outliers[0].reason
+    assert with_it.factor == pytest.approx(without.factor, rel=1e-12) and with_it.count == 5
+
+
+def test_one_log_moves_the_correction_by_at_most_the_cap():
+    """Logs near x 0.8-1.25 and a new one at x 1.9 (no outlier: the others scatter widely) move it at most 10 %."""
+    logs = [(1000.0, 800.0), (1000.0, 1000.0), (1000.0, 1250.0)]
+    base = fit_calibration(logs)
+    moved = fit_calibration(logs + [(1000.0, 1900.0)])
+    assert not moved.outliers and moved.count == 4
+    assert moved.factor == pytest.approx(1.10 * base.factor, rel=1e-9)
+    # The same logs in another order: the new log (now x 0.8) pulls down, again by at most 10 %.
+    reordered = fit_calibration(logs[1:] + [(1000.0, 1900.0), logs[0]])
+    assert reordered.factor >= fit_calibration(logs[1:] + [(1000.0, 1900.0)]).factor / 1.10 - 1e-9
+
+
+def test_a_correction_applies_from_three_logs():
+    """One or two logs give a factor to look at, but the estimate stays uncalibrated until the third (common practice)."""
+    assert not fit_calibration([(1000.0, 1500.0), (2000.0, 3000.0)]).applies
+    assert fit_calibration([(1000.0, 1500.0), (2000.0, 3000.0), (500.0, 750.0)]).applies
 
 
 def test_the_estimate_says_whether_it_is_calibrated():
-    """No logs: uncalibrated and unscaled; with logs: the time (and machine cost) scale by the factor."""
+    """No logs or too few: uncalibrated and unscaled; with three: the time (and machine cost) scale by the factor."""
     stack, printer, resin = _stack(SQUARE_10MM, 100), _printer("bay1-lcd-resin", time_model=MASKED), catalogue.material("standard-resin")
     plain = estimate_print(stack=stack, part=_part(500.0), printer=printer, material=resin)
     empty = estimate_print(stack=stack, part=_part(500.0), printer=printer, material=resin, calibration=fit_calibration([]))
+    few = estimate_print(stack=stack, part=_part(500.0), printer=printer, material=resin,
+                         calibration=fit_calibration([(1000.0, 1500.0), (2000.0, 3000.0)]))
     fitted = estimate_print(stack=stack, part=_part(500.0), printer=printer, material=resin,
-                            calibration=fit_calibration([(1000.0, 1500.0), (2000.0, 3000.0)]))
-    assert plain.calibrated is False and empty.calibrated is False
+                            calibration=fit_calibration([(1000.0, 1500.0), (2000.0, 3000.0), (400.0, 600.0)]))
+    assert plain.calibrated is False and empty.calibrated is False and few.calibrated is False
     assert any("uncalibrated" in n for n in plain.notes)
-    assert empty.print_time_s == plain.print_time_s
-    assert fitted.calibrated is True and fitted.to_dict()["calibration"]["count"] == 2
+    assert any("rests on 2 accepted prints so far and applies from 3" in n for n in few.notes)
+    assert empty.print_time_s == plain.print_time_s == few.print_time_s
+    assert fitted.calibrated is True and fitted.to_dict()["calibration"]["count"] == 3
     assert fitted.print_time_s == pytest.approx(1.5 * plain.print_time_s, rel=1e-12)
 
 
-@pytest.mark.parametrize("logs", [[(100.0, -5.0)], [(0.0, 10.0)], [(float("nan"), 10.0)]])
-def test_bad_print_logs_are_refused(logs):
-    """A log without two positive times is unusable input."""
-    with pytest.raises(UnusableInput):
-        fit_calibration(logs)
+@pytest.mark.parametrize("bad", [(100.0, -5.0), (0.0, 10.0), (float("nan"), 10.0), (1000.0, float("inf"))])
+def test_unusable_print_logs_are_ignored_with_a_note(bad):
+    """A stored log without two positive, finite times is left out and counted, never an error."""
+    cal = fit_calibration([(1000.0, 1200.0), bad, (2000.0, 2400.0), (3000.0, 3600.0)])
+    assert cal.factor == pytest.approx(1.2) and cal.count == 3 and cal.ignored == 1
+    assert "ignored" in cal.notes[0]
 
 
 # --- Unusable input -----------------------------------------------------------------------------
@@ -391,3 +456,14 @@ def test_it_refuses_a_quantity_below_one():
         estimate_print(stack=_stack(SQUARE_10MM, 10), part=_part(50.0), printer=_printer("bay1-lcd-resin"),
                        material=catalogue.material("standard-resin"), quantities=(1, 0))
     assert e.value.code == "bad_quantity"
+
+
+def test_a_part_with_no_solid_at_the_grid_is_named():
+    """A stack with no area says which file and which pixel and layer size it vanished at."""
+    stack = _stack(SQUARE_10MM, 3)
+    empty = LayerStack(**{**{f: getattr(stack, f) for f in stack.__dataclass_fields__},
+                          "area_mm2": np.zeros_like(stack.area_mm2)})
+    with pytest.raises(UnusableInput) as exc:
+        layer_loads(empty, _printer("bay1-lcd-resin", time_model=MASKED), name="speck.stl")
+    assert exc.value.code == "empty_part"
+    assert exc.value.message.startswith(f"speck.stl: the part has no solid at this printer's {stack.pixel_mm:g} mm pixel")

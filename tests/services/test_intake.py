@@ -15,7 +15,8 @@ from stl import mesh as stl_mesh  # numpy-stl, a general-purpose STL library fro
 
 from services.errors import UnusableInput
 from services.findings import verdict_of
-from services.intake import IntakeLimits, _kernel, part_from_arrays, read_part, sniff_format
+from services.intake import IntakeLimits, part_from_arrays, read_part, sniff_format
+from services.intake.health import _kernel
 
 DATA = Path(__file__).resolve().parents[1] / "data"
 INCH_MM = 25.4
@@ -189,6 +190,14 @@ def test_it_refuses_a_part_beyond_the_extent_limit_and_names_a_better_unit():
     assert "645.2 mm across" in error.message and "units mm" in error.message
 
 
+def test_an_absurd_extent_is_said_in_powers_of_ten():
+    """A box 1e30 mm long is refused with '1e+30 mm across', not thirty-one digits (Python format spec 'g')."""
+    box = trimesh.creation.box((1e30, 1.0, 1.0))
+    error = refusal(box.export(file_type="stl"), "huge.stl", units="mm")
+    assert error.code == "too_large_extent"
+    assert "the part is 1e+30 mm across" in error.message and "000,000" not in error.message
+
+
 def test_it_refuses_a_file_with_no_triangles():
     """A well-formed ASCII STL with no facets is refused."""
     assert refusal(b"solid empty\nendsolid empty\n", "empty.stl").code == "no_triangles"
@@ -201,7 +210,7 @@ def test_it_refuses_a_file_with_no_triangles():
          b"endfacet\nendsolid x\n", "stl_malformed"),
         (b"v 0 0 0\nv 1 0 0\nv 0 1 0\nf 1 2 3\nf 1 2 9\n", "unreadable"),
         (b"v 0 0 0\nv 1 0 0\nv 0 1 0\n", "no_triangles"),
-        (b"ply\nformat ascii 1.0\nelement vertex 3\nproperty float x\nend_header\n", "unreadable"),
+        (b"ply\nformat ascii 1.0\nelement vertex 3\nproperty float x\nend_header\n", "ply_truncated"),
         ((DATA / "cube_inch.3mf").read_bytes()[:-30], "zip_corrupt"),
     ],
 )
@@ -437,3 +446,158 @@ def test_part_from_arrays_hashes_the_arrays_and_keeps_parameters():
     expected = hashlib.sha256(v.astype(np.float64).tobytes() + f.astype(np.int64).tobytes()).hexdigest()
     assert (part.sha256, part.source_format, part.units) == (expected, "generated", "mm")
     assert part.parameters == {"diameter_mm": 60.0} and part.findings == ()
+
+
+# ------------------------------------------------------------------ sentences and formats (issue 17, 16)
+
+
+def test_a_3mf_with_model_parts_differing_only_in_case_is_refused():
+    """3D/3dmodel.model beside 3D/3DModel.model: which is meant is ambiguous, so neither is read."""
+    from tests.data.make_files import CONTENT_TYPES, RELS, model_xml, zip_bytes
+
+    v, f = cube_mm(10.0)
+    data = zip_bytes({"[Content_Types].xml": CONTENT_TYPES, "_rels/.rels": RELS,
+                      "3D/3dmodel.model": model_xml(v, f, unit="millimeter"),
+                      "3D/3DModel.model": model_xml(v * 2, f, unit="inch")})
+    error = refusal(data, "twins.3mf")
+    assert error.code == "3mf_ambiguous_parts"
+    assert "'3D/3dmodel.model'" in error.message and "'3D/3DModel.model'" in error.message
+
+
+def cube_mm(side: float):
+    from tests.data.make_files import cube
+
+    return cube(side)
+
+
+def test_a_binary_stl_with_a_stray_trailing_byte_is_read_with_a_note():
+    """Readers accept a tail shorter than one 50-byte record; the note says how many bytes were ignored."""
+    from tests.data.make_files import stl_binary
+
+    data = stl_binary(*cube_mm(10.0)) + b"\n"
+    part = read_part(data, name="stray.stl")
+    assert len(part.faces) == 12 and part.volume_mm3 == pytest.approx(1000.0)
+    notes = [f.message for f in part.findings if "stray" in f.message]
+    assert notes == ["stray.stl: 1 stray byte was ignored after the last of its 12 triangles (less than one 50-byte "
+                     "triangle)."]
+
+
+def test_a_binary_stl_a_whole_triangle_short_is_still_refused():
+    """A file cut inside its last triangle is truncated, not padded."""
+    from tests.data.make_files import stl_binary
+
+    assert refusal(stl_binary(*cube_mm(10.0))[:-17], "cut.stl").code == "stl_count_mismatch"
+
+
+def test_obj_faces_separated_by_tabs_are_read():
+    """OBJ fields are separated by any white space; a tab-separated cube reads as the cube."""
+    from tests.data.make_files import obj
+
+    data = obj(*cube_mm(10.0)).replace(b" ", b"\t")
+    part = read_part(data, name="tabs.obj")
+    assert len(part.faces) == 12 and part.volume_mm3 == pytest.approx(1000.0)
+
+
+def test_an_obj_face_naming_vertex_zero_is_refused():
+    """OBJ numbers vertices from 1 (negatives count back from the last); 0 names no vertex."""
+    error = refusal(b"v 0 0 0\nv 10 0 0\nv 0 10 0\nv 0 0 10\nf 0 1 2\nf 1 2 3\n", "zero.obj")
+    assert error.code == "obj_zero_index" and "vertex 0" in error.message
+
+
+def test_a_single_triangle_gets_the_open_surface_finding_in_a_report():
+    """One triangle is an open surface: the report stands with the blocker, not a refusal as an empty part."""
+    from services import catalogue
+    from services.report import build_report
+    from tests.data.make_files import stl_binary
+
+    v, f = cube_mm(10.0)
+    part = read_part(stl_binary(v, f[:1]), name="one.stl")
+    report = build_report(part=part, printer=catalogue.printer("bay1-lcd-resin"),
+                          material=catalogue.material("standard-resin"))
+    assert report.verdict == "not_printable" and report.estimate is None and report.optics is None
+    rules = [(x.rule, x.severity) for x in report.findings]
+    assert ("mesh_health", "blocker") in rules and ("not_computed", "note") in rules
+    assert any("not closed" in x.message for x in report.findings)
+
+
+def _ascii_ply(v, f, *, declared_faces: int | None = None, fmt: str = "ascii") -> bytes:
+    header = (f"ply\nformat {fmt} 1.0\nelement vertex {len(v)}\nproperty float x\nproperty float y\n"
+              f"property float z\nelement face {len(f) if declared_faces is None else declared_faces}\n"
+              "property list uchar int vertex_indices\nend_header\n")
+    rows = "".join(f"{x:g} {y:g} {z:g}\n" for x, y, z in v) + "".join(f"3 {a} {b} {c}\n" for a, b, c in f)
+    return (header + rows).encode()
+
+
+def test_an_ascii_ply_declaring_more_faces_than_it_holds_is_refused():
+    """12 faces declared, 6 present: the file is cut off, so nothing is read silently as half a part."""
+    v, f = cube_mm(10.0)
+    assert read_part(_ascii_ply(v, f), name="whole.ply").volume_mm3 == pytest.approx(1000.0)
+    error = refusal(_ascii_ply(v, f[:6], declared_faces=12), "half.ply")
+    assert error.code == "ply_truncated"
+    assert "8 vertices and 12 faces (20 rows)" in error.message and "14 rows" in error.message
+
+
+def test_a_ply_in_an_undefined_format_is_refused():
+    """The PLY format line allows ascii, binary_little_endian and binary_big_endian (Turk's PLY description)."""
+    v, f = cube_mm(10.0)
+    error = refusal(_ascii_ply(v, f, fmt="binary_middle_endian"), "odd.ply")
+    assert error.code == "ply_format" and "'binary_middle_endian'" in error.message
+
+
+def test_a_huge_extent_is_written_with_a_few_digits():
+    """1e30 mm is said as 1e+30, not as thirty-one digits of float noise."""
+    from tests.data.make_files import stl_binary
+
+    v, f = cube_mm(10.0)
+    v = v.copy()
+    v[0] = (1e30, 1e30, 1e30)
+    error = refusal(stl_binary(v, f), "huge.stl")
+    assert error.code == "too_large_extent" and "1e+30 mm across" in error.message
+    assert max(len(tok) for tok in error.message.split()) < 20
+
+
+def test_a_file_over_the_size_limit_says_both_real_sizes():
+    """One byte over the limit: both sizes in bytes (services.sizes), so they never read as equal."""
+    from tests.data.make_files import stl_binary
+
+    data = stl_binary(*cube_mm(10.0))
+    limit = len(data) - 1
+    error = refusal(data, "big.stl", limits=IntakeLimits(max_bytes=limit))
+    assert error.code == "too_large"
+    assert f"big.stl: {len(data):,} bytes is over the {limit:,}-byte limit" in error.message
+
+
+def test_a_memory_limit_while_parsing_is_not_reported_as_a_broken_file(monkeypatch):
+    """MemoryError inside the OBJ parser passes through (the caller names the limit), not 'export again'."""
+    def out_of_memory(*args, **kwargs):
+        raise MemoryError
+
+    monkeypatch.setattr(trimesh, "load", out_of_memory)
+    with pytest.raises(MemoryError):
+        read_part((DATA / "cube.obj").read_bytes(), name="cube.obj")
+
+
+def test_a_time_limit_while_parsing_is_not_reported_as_a_broken_file(monkeypatch):
+    """The worker's soft time limit inside the parser passes through as itself."""
+    from celery.exceptions import SoftTimeLimitExceeded
+
+    def too_slow(*args, **kwargs):
+        raise SoftTimeLimitExceeded()
+
+    monkeypatch.setattr(trimesh, "load", too_slow)
+    with pytest.raises(SoftTimeLimitExceeded):
+        read_part((DATA / "cube.ply").read_bytes(), name="cube.ply")
+
+
+def test_the_corner_merge_matches_trimeshs_for_a_triangle_soup():
+    """An icosphere written as STL (every corner repeated per facet) merges back to trimesh's own vertex count
+    (trimesh's merge_vertices, a reference from PyPI), with every face's corners where they were."""
+    import trimesh
+
+    from services.intake.merge import _merge_vertices
+
+    sphere = trimesh.creation.icosphere(subdivisions=5, radius=7.0)
+    soup = sphere.vertices[sphere.faces].reshape(-1, 3)
+    merged, faces = _merge_vertices(soup, np.arange(len(soup)).reshape(-1, 3))
+    assert len(merged) == len(sphere.vertices)
+    assert np.array_equal(merged[faces], sphere.vertices[sphere.faces])

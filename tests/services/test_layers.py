@@ -288,6 +288,24 @@ def test_stepped_part_collapses_to_one_raster_per_step(make_part):
         assert np.array_equal(stack.layer(first), mask) and np.array_equal(stack.layer(last), mask)
 
 
+@pytest.mark.parametrize("dz,plate_mm", [(0.2, 0.5), (0.25, 0.375), (0.125, 0.5625)])
+def test_a_flat_face_on_a_mid_plane_is_not_copied_up_the_stack(make_part, dz, plate_mm):
+    """A plate under a 1 mm post: above the plate every layer is the post alone (1 mm2).
+
+    The plate's top lies exactly on a mid-plane (all three values exact in binary). Reference: manifold3d's own
+    ``Manifold.slice`` at each mid-plane, for every layer but the one the face lies on (there the face
+    belongs to the solid below it in our slicer, z_lo < h <= z_hi, and to the solid above in manifold3d's).
+    """
+    shape = Manifold.cube((4.0, 4.0, plate_mm)) + Manifold.cube((1.0, 1.0, 1.5)).translate((1.5, 1.5, 0.0))
+    stack = stack_of(make_part(shape), px=0.1, dz=dz)
+    expected = [shape.slice(float(z)).area() for z in stack.z_centres_mm]
+    on_face = stack.z_centres_mm == plate_mm
+    assert on_face.sum() == 1
+    assert stack.area_mm2[~on_face] == pytest.approx(np.array(expected)[~on_face], abs=1e-9)
+    assert stack.area_mm2[on_face] == pytest.approx([16.0] * int(on_face.sum()))
+    assert stack.distinct_count == 2
+
+
 def test_float32_walls_are_vertical_for_dedupe(make_part):
     """Walls tilted by float32 rounding do not mark layers as changed, so slicing is skipped."""
     part = make_part(Manifold.cylinder(3.0, 2.0, circular_segments=32).translate((13.7, 21.3, 0.0)))

@@ -3,8 +3,10 @@
 import io
 
 import numpy as np
+import pytest
 import trimesh
 from PIL import Image
+from scipy.spatial import ConvexHull
 
 from services import pictures
 from services.pictures import SEVERITY_RGB, Marker, _Camera
@@ -56,7 +58,14 @@ def test_the_perspective_view_shows_the_part_and_its_markers():
                                    markers=(Marker((0.0, 0.0, 4.0), "7", "caution"),))
     rgb = _image(png)
     part = np.all(rgb[..., 2:3] > rgb[..., 0:1] + 8, axis=-1) & (rgb.sum(axis=-1) < 640)  # blue-grey faces
-    assert part.sum() > 5000
+    # A convex solid's silhouette is the convex hull of its projected corners (scipy's ConvexHull; the
+    # drawing is made at twice the size and halved); the faces fill it within the anti-aliased rim.
+    lo, hi = box.vertices.min(axis=0), box.vertices.max(axis=0)
+    camera = _Camera.looking_at((lo + hi) / 2, 3.0 * float(np.linalg.norm(hi - lo)) + 1.0, -35.0, 32.0)
+    plate, _ = pictures._plate_lines(lo, hi)
+    fit = pictures._ScreenFit(np.concatenate([camera.project(box.vertices)[0], *(camera.project(p)[0] for p in plate)]), 1040)
+    silhouette_px = ConvexHull(fit(camera.project(box.vertices)[0]) / 2).volume
+    assert part.sum() == pytest.approx(silhouette_px, rel=0.03)
     assert _has_colour(rgb, SEVERITY_RGB["caution"]).sum() > 100
     assert _has_colour(rgb, SEVERITY_RGB["blocker"]).sum() == 0
 
@@ -89,3 +98,44 @@ def test_a_small_mesh_is_not_clustered():
     box = trimesh.creation.box(extents=(1, 1, 1))
     vertices, faces = pictures.cluster_vertices(box.vertices, box.faces, max_faces=100)
     assert np.array_equal(faces, box.faces) and np.array_equal(vertices, box.vertices)
+
+
+def test_a_one_pixel_problem_is_ringed_and_the_title_is_in_words():
+    """One highlighted pixel in a 400 x 400 crop (about one screen pixel) gets a ring a designer can find;
+    the rule is named in words in the title."""
+    layer = np.ones((400, 400), bool)
+    highlight = np.zeros_like(layer)
+    highlight[100, 300] = True
+    png = pictures.layer_crop_png(layer, highlight, pixel_mm=0.05, title="min_gap: layer 3, z = 0.35 mm")
+    rgb = np.asarray(Image.open(io.BytesIO(png)).convert("RGB")).astype(int)
+    red = np.argwhere(_has_colour(rgb, pictures.HIGHLIGHT_RGB))
+    assert len(red) > 40  # a ring of radius 8 px, 2 px wide, not a single dot
+    centre = red.mean(axis=0)
+    # The ring is centred on the pixel: column 300/400 of the crop, row 100 from the bottom (y up).
+    img_w = rgb.shape[1] - 24
+    assert abs((centre[1] - 12) / img_w - 300.5 / 400) < 0.02
+    no_ring = pictures.layer_crop_png(layer, np.zeros_like(layer), pixel_mm=0.05, title="min_gap: layer 3")
+    assert _has_colour(np.asarray(Image.open(io.BytesIO(no_ring)).convert("RGB")).astype(int),
+                       pictures.HIGHLIGHT_RGB).sum() == 0
+
+
+def _disc_map(pixel_mm: float) -> np.ndarray:
+    n = int(round(80 / pixel_mm))
+    centres = (np.arange(n) + 0.5) * pixel_mm - 40
+    r = np.hypot(centres[None, :], centres[:, None])
+    return np.where(r <= 30, 1.0 + 0.02 * r, 0.0)
+
+
+def test_a_huge_frame_draws_the_same_map_as_a_coarse_one():
+    """A 30 mm disc on a 4,000 x 4,000 frame (reduced before colouring) and on a 400 x 400 frame (not reduced)
+    give the same picture: same size, the same share of solid pixels within 1 %, the same value range."""
+    pictures_of = []
+    for pixel_mm in (0.02, 0.2):
+        thick = _disc_map(pixel_mm)
+        png = pictures.map_png(thick, pixel_mm=pixel_mm, unit="mm", mask=thick > 0, title="t")
+        pictures_of.append(np.asarray(Image.open(io.BytesIO(png)).convert("RGB")).astype(int))
+    fine, coarse = pictures_of
+    assert fine.shape == coarse.shape
+    solid = [(~_has_colour(img[30:-60, 16:-130], pictures.VOID_RGB, 3)).mean() for img in (fine, coarse)]
+    # The disc covers pi 30^2 / 80^2 = 44.2 % of the frame (analytic), before the frame's white margin.
+    assert abs(solid[0] - solid[1]) < 0.01

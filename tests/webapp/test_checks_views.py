@@ -1,5 +1,6 @@
 """The designer's pages: upload, progress, report, and nothing of alice's for charlie."""
 
+import re
 from unittest import mock
 
 import pytest
@@ -15,7 +16,7 @@ def _upload(client, data=None, name="box.stl", **extra):
     form = {"file": SimpleUploadedFile(name, box_stl() if data is None else data), "units": "mm",
             "printer": "bay1-lcd-resin", "material": "standard-resin", "orientation": "+z",
             "quantities": "1, 5", "freqs": "140", **extra}
-    with mock.patch("webapp.checks.tasks.run_check.delay") as delay:
+    with mock.patch("webapp.checks.queue.send_run_check") as delay:
         response = client.post(reverse("upload"), form)
     return response, delay
 
@@ -26,7 +27,7 @@ def alice_check(alice, seeded, django_capture_on_commit_callbacks):
     from services.settings import CheckSettings
 
     design = services.design_create(owner=alice, name="box.stl", data=box_stl(), units="mm")
-    with mock.patch("webapp.checks.tasks.run_check.delay"):
+    with mock.patch("webapp.checks.queue.send_run_check"):
         return services.check_create(owner=alice, design=design, printer=Printer.objects.get(slug="bay1-lcd-resin"),
                                      material=Material.objects.get(slug="standard-resin"), check_settings=CheckSettings())
 
@@ -39,7 +40,7 @@ def test_it_requires_login(client, db):
 
 def test_it_queues_a_check_after_commit(alice_client, seeded, django_capture_on_commit_callbacks):
     """An upload stores the design, creates a queued check and enqueues it only once committed."""
-    with mock.patch("webapp.checks.tasks.run_check.delay") as delay:
+    with mock.patch("webapp.checks.queue.send_run_check") as delay:
         with django_capture_on_commit_callbacks(execute=True) as callbacks:
             response, _ = _upload(alice_client)
     check = Check.objects.get()
@@ -56,6 +57,22 @@ def test_it_explains_a_bad_frequency_next_to_the_field(alice_client, seeded):
     assert not Design.objects.exists() and not delay.called
 
 
+def test_with_no_frequency_it_asks_for_one_when_the_material_has_no_band(alice_client, seeded):
+    """No frequency and a material without a design band: the form asks for a frequency; with the band it queues."""
+    from webapp.catalogue.models import Material
+
+    resin = Material.objects.get(slug="standard-resin")
+    resin.data = {**resin.data, "band_ghz": None}
+    resin.save()
+    response, delay = _upload(alice_client, freqs="")
+    assert response.status_code == 400 and "Give a design frequency" in response.content.decode()
+    assert not delay.called
+    resin.data = {**resin.data, "band_ghz": [75.0, 110.0]}
+    resin.save()
+    response, _ = _upload(alice_client, freqs="")
+    assert response.status_code == 302
+
+
 def test_it_refuses_an_empty_file(alice_client, seeded):
     """An empty upload is refused with a sentence naming the file."""
     response, _ = _upload(alice_client, data=b"", name="empty.stl")
@@ -66,7 +83,10 @@ def test_it_refuses_an_empty_file(alice_client, seeded):
 def test_it_shows_progress_until_done(alice_client, alice_check):
     """The check page shows a progress bar and its status endpoint answers JSON."""
     page = alice_client.get(reverse("check", args=[alice_check.public_id]))
-    assert b"progressbar" in page.content
+    assert page.status_code == 200
+    html = page.content.decode()
+    (bar,) = re.findall(r'<div[^>]*role="progressbar"[^>]*>', html)
+    assert 'aria-valuenow="0"' in bar and 'aria-valuemax="100"' in bar  # a queued check: 0 %
     status = alice_client.get(reverse("check_status", args=[alice_check.public_id])).json()
     assert status["status"] == "queued" and status["progress"] == 0
 
@@ -80,7 +100,7 @@ def test_it_limits_active_checks_per_user(alice, seeded, settings):
     design = services.design_create(owner=alice, name="box.stl", data=box_stl())
     kwargs = dict(owner=alice, design=design, printer=Printer.objects.first(), material=Material.objects.first(),
                   check_settings=CheckSettings())
-    with mock.patch("webapp.checks.tasks.run_check.delay"):
+    with mock.patch("webapp.checks.queue.send_run_check"):
         services.check_create(**kwargs)
         with pytest.raises(services.ApplicationError) as exc:
             services.check_create(**kwargs)

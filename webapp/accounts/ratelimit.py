@@ -8,6 +8,7 @@ production), so every gunicorn process sees the same counts.
 from __future__ import annotations
 
 import hashlib
+import unicodedata
 
 from django.conf import settings
 from django.core.cache import cache as default_cache
@@ -26,7 +27,7 @@ class LoginThrottle:
     @staticmethod
     def _key(kind: str, value: str) -> str:
         # Hashed so any user name or address makes a valid, bounded cache key.
-        return f"login-failures:{kind}:{hashlib.sha256(value.strip().lower().encode()).hexdigest()}"
+        return f"login-failures:{kind}:{hashlib.sha256(counted_name(value).encode()).hexdigest()}"
 
     def blocked(self, *, username: str, address: str) -> bool:
         """Return True when this user name or address has used up its failures for the window."""
@@ -50,6 +51,15 @@ class LoginThrottle:
     def sentence(self) -> str:
         return (f"Too many failed sign-ins for this account or from this address; try again in "
                 f"{max(1, round(self.window_s / 60))} minutes.")
+
+
+def counted_name(username: str) -> str:
+    """Return the name failures are counted under: NFKC-normalised (as the sign-in form reads it) and case-folded.
+
+    Full-width, mathematical and ordinal-mark look-alikes sign in to the same account, so they must
+    not open a counter of their own.
+    """
+    return unicodedata.normalize("NFKC", username).strip().casefold()
 
 
 def client_address(request) -> str:

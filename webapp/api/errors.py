@@ -5,6 +5,7 @@ from __future__ import annotations
 import logging
 
 from django.core.exceptions import PermissionDenied
+from django.db import DataError
 from django.http import Http404, HttpRequest, HttpResponse, JsonResponse
 from django.views.decorators.csrf import csrf_exempt
 from ninja import NinjaAPI
@@ -89,6 +90,17 @@ def install_error_handlers(api: NinjaAPI) -> None:
     def http_error(request, exc: HttpError):
         return respond(request, exc.status_code, "bad_request" if exc.status_code == 400 else f"http_{exc.status_code}",
                        str(exc).rstrip(".") + ".")
+
+    @api.exception_handler(DataError)
+    def unstorable(request, exc: DataError):
+        # A NUL (0x00) that reached the database in a path or a free-form field the schema does not pattern:
+        # PostgreSQL refuses it. Nothing holds such a name, and nothing of it can be stored.
+        if "NUL" not in str(exc):
+            return internal(request, exc)
+        if request.method == "GET":
+            return respond(request, 404, "not_found", NOT_FOUND)
+        return respond(request, 400, "bad_text", "Text in the request holds a NUL character (0x00), which cannot "
+                       "be stored; remove it.")
 
     @api.exception_handler(Exception)
     def internal(request, exc):

@@ -17,8 +17,15 @@ Orientation = Literal[ORIENTATIONS]  # type: ignore[valid-type]
 Kind = Literal[KINDS]  # type: ignore[valid-type]
 CheckStatus = Literal["queued", "running", "done", "failed", "cancelled"]
 Verdict = Literal["printable", "printable_with_cautions", "not_printable"]
+Meets = Literal["yes", "no", "not_stated"]
 Quantity = Annotated[int, Field(ge=1, le=100_000)]
 FreqGhz = Annotated[float, Field(gt=0, le=10_000)]
+
+
+# Free text must not hold NUL (0x00): PostgreSQL text and jsonb cannot store it (Django's own form fields refuse it
+# too). Written into the schema, so clients and the API's description both see the rule.
+NO_NUL = "^[^\\x00]*$"
+Text = Annotated[str, Field(pattern=NO_NUL)]
 
 
 class ErrorOut(Schema):
@@ -66,11 +73,11 @@ class DesignOut(Schema):
 
 class ParametricIn(Schema):
     kind: Kind
-    parameters: dict[str, float | int | str] = Field(default_factory=dict, description="see GET /components")
-    printer: str = Field(description="printer slug: the part must fit its build volume")
-    material: str = Field(description="material slug: its index shapes the part")
+    parameters: dict[Text, float | int | Text] = Field(default_factory=dict, description="see GET /components")
+    printer: str = Field(pattern=NO_NUL, description="printer slug: the part must fit its build volume")
+    material: str = Field(pattern=NO_NUL, description="material slug: its index shapes the part")
     revision_of: UUID | None = None
-    note: str = Field("", max_length=300, description="what changed in this revision")
+    note: str = Field("", max_length=300, pattern=NO_NUL, description="what changed in this revision")
 
 
 class OpticsIn(Schema):
@@ -78,19 +85,45 @@ class OpticsIn(Schema):
     focal_length_mm: float | None = Field(None, gt=0)
     edge_taper_db: float | None = Field(None, gt=0, le=60)
     beam_waist_mm: float | None = Field(None, gt=0)
+    clear_aperture_mm: float | None = Field(None, gt=0, description="optical zone diameter; empty: the "
+                                            "generator's, else detected from the part")
+
+
+class RequirementsIn(Schema):
+    """The designer's targets; each checked as designed, as printed and over the printer's tolerance band."""
+
+    band_ghz: list[FreqGhz] | None = Field(None, min_length=2, max_length=2, description="[low, high]; with no "
+                                           "design frequencies, the optics are evaluated at its ends and middle")
+    max_insertion_loss_db: float | None = Field(None, gt=0)
+    loss_basis: Literal["each_frequency", "band_average"] = "each_frequency"
+    max_spot_fwhm_ratio: float | None = Field(None, description="spot FWHM at the design focal plane over the "
+                                                                "diffraction-limited FWHM")
+    min_focusing_efficiency: float | None = Field(None, description="0 to 1")
+    min_strehl: float | None = Field(None, description="0 to 1")
+    focal_length_mm: float | None = Field(None, gt=0, description="where the wavefront must converge, from the "
+                                                                  "part's far extreme")
+    focal_tolerance_mm: float | None = Field(None, gt=0, description="+- around focal_length_mm; required with it")
+    max_thickness_mm: float | None = Field(None, gt=0)
+    max_diameter_mm: float | None = Field(None, gt=0)
+    f_number_min: float | None = Field(None, gt=0)
+    f_number_max: float | None = Field(None, gt=0)
+    min_mode_purity: float | None = Field(None, description="vortex plates, 0 to 1")
 
 
 class CheckIn(Schema):
     design: UUID
-    printer: str
-    material: str
+    printer: str = Field(pattern=NO_NUL)
+    material: str = Field(pattern=NO_NUL)
     orientation: Orientation = "+z"
     quantities: list[Quantity] = Field(default_factory=lambda: [1, 5, 10, 25], min_length=1, max_length=20)
     optics: OpticsIn = Field(default_factory=OpticsIn)
+    requirements: RequirementsIn | None = Field(None, description="null: none stated (meets_requirements "
+                                                                  "reads not_stated)")
 
 
 class SummaryOut(Schema):
     verdict: Verdict
+    meets_requirements: Meets = Field(description="yes | no against the stated requirements; not_stated")
     blockers: int
     cautions: int
     notes: int
@@ -119,6 +152,8 @@ class CheckOut(Schema):
     progress: float = Field(description="0 to 1")
     attempts: int
     verdict: Verdict | None
+    meets_requirements: Meets | None = Field(description="once done: yes | no | not_stated (kept apart from the "
+                                                         "verdict, which speaks only of printability)")
     error_code: str | None
     error: str | None
     created_at: datetime
@@ -156,6 +191,10 @@ class CheckOut(Schema):
         return obj.verdict or None
 
     @staticmethod
+    def resolve_meets_requirements(obj) -> str | None:
+        return obj.report.get("meets_requirements", "not_stated") if obj.report else None
+
+    @staticmethod
     def resolve_error_code(obj) -> str | None:
         return obj.error_code or None
 
@@ -176,10 +215,12 @@ class CheckOut(Schema):
 
 def report_summary(report: dict) -> dict:
     """Return the few numbers a table of many checks shows, from a stored report."""
-    severities = [f.get("severity") for f in report.get("findings", [])]
+    # Requirement findings stand apart from the printability counts, as meets_requirements does from the verdict.
+    severities = [f.get("severity") for f in report.get("findings", []) if f.get("rule") != "requirement"]
     estimate = report.get("estimate") or {}
     cost = estimate.get("cost") or {}
-    return {"verdict": report["verdict"], "blockers": severities.count("blocker"),
+    return {"verdict": report["verdict"], "meets_requirements": report.get("meets_requirements", "not_stated"),
+            "blockers": severities.count("blocker"),
             "cautions": severities.count("caution"), "notes": severities.count("note"),
             "material_ml": estimate.get("material_ml"), "print_time_s": estimate.get("print_time_s"),
             "currency": cost.get("currency"), "cost_per_part": cost.get("total"),
@@ -197,16 +238,16 @@ class CatalogueOut(Schema):
 
 
 class CatalogueIn(Schema):
-    slug: str = Field(max_length=50, description="short name: lower-case letters, digits and hyphens")
-    name: str = Field(max_length=120)
+    slug: str = Field(max_length=50, pattern=NO_NUL, description="short name: lower-case letters, digits and hyphens")
+    name: str = Field(max_length=120, pattern=NO_NUL)
     data: dict[str, Any] = Field(description="every field of the printer profile or material (see GET of one)")
-    note: str = Field("", max_length=300, description="why it was added")
+    note: str = Field("", max_length=300, pattern=NO_NUL, description="why it was added")
 
 
 class CatalogueUpdateIn(Schema):
     data: dict[str, Any] = Field(description="the whole new data; unchanged data makes no new version")
-    name: str | None = Field(None, max_length=120)
-    note: str = Field("", max_length=300, description="what changed and why")
+    name: str | None = Field(None, max_length=120, pattern=NO_NUL)
+    note: str = Field("", max_length=300, pattern=NO_NUL, description="what changed and why")
     base_version: int | None = Field(None, description="the version the edit started from; a newer one refuses it")
 
 
@@ -219,7 +260,7 @@ class PrintLogIn(Schema):
     actual_print_time_s: float
     succeeded: bool
     actual_material_ml: float | None = Field(None, description="null: not measured")
-    failure_reason: str = Field("", max_length=2000)
+    failure_reason: str = Field("", max_length=2000, pattern=NO_NUL)
     copies: int = Field(1, ge=1, le=10_000, description="copies printed together in the build")
 
 
@@ -230,13 +271,17 @@ class PrintLogOut(Schema):
     printer: str
     logged_by: str | None
     copies: int
-    actual_print_time_s: float
+    actual_print_time_s: float | None = Field(description="null for a row stored without a finite time")
     actual_material_ml: float | None
     succeeded: bool
     failure_reason: str
     estimated_print_time_s: float
     estimated_material_ml: float
-    time_ratio: float = Field(description="actual over estimated print time")
+    time_ratio: float | None = Field(description="actual over estimated print time; null for a row stored "
+                                                 "without usable times")
+    accepted_at: datetime | None = Field(description="when a lab manager accepted it into the calibration; "
+                                                     "null: not counted yet")
+    accepted_by: str | None
     created_at: datetime
 
     @staticmethod
@@ -250,6 +295,14 @@ class PrintLogOut(Schema):
     @staticmethod
     def resolve_design_name(obj) -> str:
         return obj.logged_check.design.name
+
+    @staticmethod
+    def resolve_actual_print_time_s(obj) -> float | None:
+        return obj.actual_print_time_s if obj.usable else None
+
+    @staticmethod
+    def resolve_accepted_by(obj) -> str | None:
+        return obj.accepted_by.get_username() if obj.accepted_by_id else None
 
     @staticmethod
     def resolve_printer(obj) -> str:

@@ -232,6 +232,8 @@ class MaterialForm(EntryForm):
                                           help_text="none: a reference material that is not printed")
     price_unit = forms.ChoiceField(choices=[("l", "per litre"), ("kg", "per kg")], label="Priced")
     currency = forms.CharField(max_length=8, help_text="the printers' currency, e.g. EUR")
+    band_ghz = forms.CharField(required=False, label="Design band, GHz",
+                               help_text="low and high end, e.g. 75, 110 (W band); checks given no frequency run across it")
 
     def __init__(self, *args, **kwargs):
         super().__init__(*args, **kwargs)
@@ -254,11 +256,21 @@ class MaterialForm(EntryForm):
     def _initial_from(self, data: dict) -> dict:
         initial = {k: data.get(k) for k in ("slug", "name", "kind", "price_unit", "currency", "notes",
                                             *(n.key for n in MATERIAL))}
-        initial.update(processes=list(data.get("processes") or ()), base_version=data.get("version"))
+        initial.update(processes=list(data.get("processes") or ()), base_version=data.get("version"),
+                       band_ghz=_numbers_text(data.get("band_ghz")))
         for i, row in enumerate(data.get("rf") or ()):
             initial.update({f"rf__{i}__{k}": row.get(k) for k in ("freq_ghz", "eps_r", "tan_delta", "source")})
         initial["advanced"] = json.dumps({"sources": data.get("sources") or {}}, indent=2, ensure_ascii=False)
         return initial
+
+    def clean_band_ghz(self) -> list[float] | None:
+        text = (self.cleaned_data.get("band_ghz") or "").strip()
+        if not text:
+            return None
+        try:
+            return parse_numbers(text, count=2)
+        except ValueError:
+            raise forms.ValidationError("Write the band as two frequencies in GHz, low then high, e.g. 75, 110.")
 
     def to_data(self) -> dict:
         """Return the material data the fields (and the advanced JSON) describe; blank RF rows are dropped."""
@@ -268,7 +280,7 @@ class MaterialForm(EntryForm):
         data.update(name=d["name"], currency=(d.get("currency") or "").strip().upper(),
                     processes=list(d.get("processes") or ()),
                     notes=d.get("notes") or "", sources=extras.get("sources") or {},
-                    rf=[row for _, row in self._rf_rows()])
+                    rf=[row for _, row in self._rf_rows()], band_ghz=d.get("band_ghz"))
         return data
 
     def _rf_rows(self) -> list[tuple[int, dict]]:
@@ -297,6 +309,7 @@ class MaterialForm(EntryForm):
         return [{"title": "Material", "groups": [{"fields": self.bound(["slug", "name", "kind", "processes"])}]},
                 {"title": "Mass and price", "groups": [{"fields": self.bound(
                     ["density_g_cm3", "price", "price_unit", "currency", "waste_factor"])}]},
+                {"title": "Design band", "groups": [{"fields": self.bound(["band_ghz"])}]},
                 {"title": "Permittivity and loss tangent against frequency", "rf": rf,
                  "note": "one row per frequency, each with where its values come from; blank rows are ignored"},
                 {"title": "Notes, sources and the rest", "groups": [{"fields": self.bound(["notes", "advanced", "note"]), "wide": True}]}]
@@ -330,3 +343,42 @@ class PrintLogForm(forms.Form):
         for path, message in problems:
             name = self.FIELDS.get(path, path)
             self.add_error(name if name in self.fields else None, message)
+
+
+MEASURE_FILES = 4
+MAX_MEASUREMENT_BYTES = 5 * 2**20
+
+
+class MeasureForm(forms.Form):
+    """Touchstone files of flat samples, each with its thickness, and who measured them."""
+
+    lab = forms.CharField(max_length=120, label="Measured by", help_text="the lab (and person) that measured, "
+                          "as the source of the new values will say")
+
+    def __init__(self, *args, **kwargs):
+        super().__init__(*args, **kwargs)
+        for i in range(1, MEASURE_FILES + 1):
+            self.fields[f"file_{i}"] = forms.FileField(required=False, label=f"Sample {i}, .s2p file")
+            self.fields[f"thickness_mm_{i}"] = forms.FloatField(required=False, label=f"Sample {i} thickness, mm",
+                                                                widget=forms.NumberInput(attrs={"step": "any"}))
+
+    def clean(self):
+        data = super().clean()
+        pairs = []
+        for i in range(1, MEASURE_FILES + 1):
+            upload, thickness = data.get(f"file_{i}"), data.get(f"thickness_mm_{i}")
+            if upload is None and thickness is None:
+                continue
+            if upload is None:
+                self.add_error(f"file_{i}", "Choose the .s2p file measured on this sample, or clear its thickness.")
+            elif thickness is None or thickness <= 0:
+                self.add_error(f"thickness_mm_{i}", f"Give the thickness of {upload.name} in mm (more than 0).")
+            elif upload.size > MAX_MEASUREMENT_BYTES:
+                self.add_error(f"file_{i}", f"{upload.name} is over {MAX_MEASUREMENT_BYTES // 2**20} MiB; a two-port "
+                               "sweep is far smaller, so this is probably not a Touchstone file.")
+            else:
+                pairs.append((upload.name, upload.read(), thickness))
+        if not pairs and not self.errors:
+            raise forms.ValidationError("Upload at least one .s2p file with the thickness of its sample.")
+        data["pairs"] = pairs
+        return data

@@ -1,5 +1,6 @@
 """Printer profiles and materials as the lab manager keeps them. Every edit makes a new version."""
 
+import math
 import uuid
 
 from django.conf import settings
@@ -88,6 +89,11 @@ class PrintLog(models.Model):
     estimated_material_ml = models.FloatField()
     time_model_key = models.CharField(max_length=16)
     created_at = models.DateTimeField(auto_now_add=True)
+    # A designer's log moves the lab's calibration only once a lab manager accepts it (a lab
+    # manager's own logs are accepted as they are made).
+    accepted_at = models.DateTimeField(null=True, blank=True)
+    accepted_by = models.ForeignKey(settings.AUTH_USER_MODEL, null=True, blank=True, on_delete=models.SET_NULL,
+                                    related_name="+")
 
     class Meta:
         ordering = ["-created_at"]
@@ -96,9 +102,15 @@ class PrintLog(models.Model):
         return f"print of {self.logged_check_id} ({'ok' if self.succeeded else 'failed'})"
 
     @property
-    def time_ratio(self) -> float:
-        """Return actual over estimated print time (1.0: the estimate was right)."""
-        return self.actual_print_time_s / self.estimated_print_time_s
+    def time_ratio(self) -> float | None:
+        """Return actual over estimated print time (1.0: the estimate was right); None for an unusable row."""
+        ratio = self.actual_print_time_s / self.estimated_print_time_s if self.estimated_print_time_s else math.nan
+        return ratio if math.isfinite(ratio) and ratio > 0 else None
+
+    @property
+    def usable(self) -> bool:
+        """Return False for a row stored before times were validated (infinite, NaN or not positive)."""
+        return self.time_ratio is not None
 
     @property
     def material_ratio(self) -> float | None:

@@ -94,48 +94,82 @@ def time_model_key(snapshot: dict) -> str:
 
 
 def calibration_for(printer: Printer, snapshot: dict | None = None) -> Calibration:
-    """Return the printer's print-time correction, fitted over its successful logged prints.
+    """Return the printer's print-time correction, fitted over its accepted successful logged prints.
 
     Only prints estimated with the same time model as ``snapshot`` (the printer's current data by
     default) count: once the lab manager changes the model's constants, older logs no longer say
     how far off it is.
     """
-    pairs = calibration_logs(printer, snapshot).values_list("model_print_time_s", "actual_print_time_s")
-    return fit_calibration([tuple(p) for p in pairs])
+    return calibration_fit(printer, snapshot)[0]
+
+
+def calibration_fit(printer: Printer, snapshot: dict | None = None) -> tuple[Calibration, list[dict]]:
+    """Return the printer's calibration and the points it was fitted on, each with its log and outlier reason."""
+    rows = list(calibration_logs(printer, snapshot).order_by("created_at", "id").values_list(
+        "id", "model_print_time_s", "actual_print_time_s"))
+    calibration = fit_calibration([(estimated, actual) for _, estimated, actual in rows])
+    reasons = {rows[o.index][0]: o.reason for o in calibration.outliers}
+    points = [{"log_id": pk, "estimated_s": estimated, "actual_s": actual, "outlier": reasons.get(pk)}
+              for pk, estimated, actual in rows]
+    return calibration, points
 
 
 def calibration_logs(printer: Printer, snapshot: dict | None = None):
-    """Return the logs a printer's calibration rests on."""
+    """Return the logs a printer's calibration rests on: successful, accepted, with the same time model."""
     key = time_model_key(snapshot if snapshot is not None else printer.data)
-    return PrintLog.objects.filter(logged_check__printer=printer, succeeded=True, time_model_key=key)
+    return PrintLog.objects.filter(logged_check__printer=printer, succeeded=True, time_model_key=key,
+                                   accepted_at__isnull=False)
 
 
 def calibration_table() -> list[dict]:
-    """Return, per printer, its calibration and how many of its logs it leaves out (older models, failures)."""
+    """Return, per printer, its calibration, its outliers and how many of its logs it leaves out."""
     rows = []
     for printer in printer_list():
         total = PrintLog.objects.filter(logged_check__printer=printer).count()
-        calibration = calibration_for(printer)
-        rows.append({"printer": printer, "calibration": calibration, "logs": total,
-                     "not_counted": total - calibration.count})
+        waiting = PrintLog.objects.filter(logged_check__printer=printer, succeeded=True, accepted_at__isnull=True).count()
+        calibration, points = calibration_fit(printer)
+        rows.append({"printer": printer, "calibration": calibration, "logs": total, "waiting": waiting,
+                     "not_counted": total - calibration.count, "points": points})
     return rows
 
 
-def print_log_list_for(*, user):
-    """Return the logs a user may see: all for a lab manager, otherwise those of the user's own checks."""
-    logs = PrintLog.objects.select_related("logged_check__design", "logged_check__printer", "logged_by")
+def print_log_list_for(*, user, printer: str = ""):
+    """Return the logs a user may see (all for a lab manager, else those of their own checks), on one printer if given."""
+    logs = PrintLog.objects.select_related("logged_check__design", "logged_check__printer", "logged_by", "accepted_by")
+    if printer:
+        logs = logs.filter(logged_check__printer__slug=printer)
     return logs if is_lab_manager(user) else logs.filter(logged_check__owner=user)
 
 
 def with_counted(logs) -> list[PrintLog]:
-    """Return the logs, each marked ``counted`` when its printer's calibration rests on it."""
-    keys: dict[int, str] = {}
+    """Return the logs, each marked ``counted`` when its printer's calibration rests on it, else ``why_not``."""
+    fits: dict[int, tuple[str, set, dict]] = {}
     rows = list(logs)
     for log in rows:
         printer = log.logged_check.printer
-        key = keys.setdefault(printer.pk, time_model_key(printer.data))
-        log.counted = log.succeeded and log.time_model_key == key
+        if printer.pk not in fits:
+            _, points = calibration_fit(printer)
+            fits[printer.pk] = (time_model_key(printer.data), {p["log_id"] for p in points},
+                                {p["log_id"]: p["outlier"] for p in points if p["outlier"]})
+        key, fitted, outliers = fits[printer.pk]
+        log.outlier_reason = outliers.get(log.pk)
+        log.why_not = _why_not_counted(log, key, fitted)
+        log.counted = log.why_not is None
     return rows
+
+
+def _why_not_counted(log: PrintLog, key: str, fitted: set) -> str | None:
+    if not log.succeeded:
+        return "failed print"
+    if log.time_model_key != key:
+        return "older time model"
+    if not log.usable:
+        return "unusable times (stored before they were checked)"
+    if log.accepted_at is None:
+        return "waiting for a lab manager to accept it"
+    if log.pk not in fitted:
+        return "not in the fit"
+    return "outlier: " + log.outlier_reason if log.outlier_reason else None
 
 
 def checks_to_log_for(*, user):

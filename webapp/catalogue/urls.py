@@ -23,7 +23,10 @@ urlpatterns = [
     path("", RedirectView.as_view(pattern_name="catalogue:printer_list"), name="index"),
     *_entry_paths("printer", "printers"),
     *_entry_paths("material", "materials"),
+    path("materials/<slug:slug>/rf.png", views.material_rf_png, name="material_rf_png"),
+    path("materials/<slug:slug>/measure/", views.material_measure, name="material_measure"),
     path("logs/", views.log_list, name="log_list"),
     path("logs/new/<uuid:public_id>/", views.log_create, name="log_create"),
+    path("logs/<uuid:public_id>/accept/", views.log_accept, name="log_accept"),
     path("logs/<uuid:public_id>/delete/", views.log_delete, name="log_delete"),
 ]

@@ -142,6 +142,9 @@ def material_problems(data: dict) -> list[Problem]:
     unknown = sorted(set(data.get("processes") or ()) - set(PROCESSES))
     if unknown:
         problems.append(("processes", f"Unknown process {', '.join(unknown)}; choose from {', '.join(PROCESSES)}."))
+    band = data.get("band_ghz")
+    if band and not (len(band) == 2 and all(_is_number(v) for v in band) and 0 < band[0] < band[1]):
+        problems.append(("band_ghz", "The design band needs a positive low end below its high end, e.g. 75, 110 GHz."))
     return problems + rf_problems(data.get("rf") or [])
 
 

@@ -79,7 +79,18 @@ class Check(models.Model):
         """Return the private-storage folder that holds this check's pictures and exports."""
         return f"reports/{self.public_id}/"
 
+    # One wording of a check's state for every page and list (the API keeps the plain status words).
+    STATUS_LABELS = {"queued": "waiting for a worker", "running": "checking", "done": "done",
+                     "failed": "failed", "cancelled": "cancelled"}
+
+    @property
+    def status_label(self) -> str:
+        return self.STATUS_LABELS.get(self.status, self.status)
+
     def status_dict(self) -> dict:
-        return {"id": str(self.public_id), "status": self.status, "stage": self.stage,
+        from webapp.checks.presenters import STAGES
+
+        return {"id": str(self.public_id), "status": self.status, "label": self.status_label, "stage": self.stage,
+                "stage_label": dict(STAGES).get(self.stage, self.stage.replace("_", " ")),
                 "progress": round(self.progress, 3), "attempts": self.attempts, "error": self.error or None,
                 "error_code": self.error_code or None, "verdict": self.verdict or None}

@@ -3,11 +3,12 @@ beyond what the callers pass in): key limits of a profile, material data, the re
 
 from __future__ import annotations
 
-from services.report_diff import diff_reports
-from services.report_tables import headline, optics_rows, severity_counts
+from services.render.diff import diff_reports
+from services.render.tables import headline, optics_rows, requirement_rows, severity_counts
 
 STAGES = (("reading", "Reading the mesh"), ("slicing", "Slicing into layers"), ("rules", "Checking design rules"),
-          ("estimate", "Estimating time and cost"), ("optics", "Predicting the optics"), ("pictures", "Drawing pictures"))
+          ("estimate", "Estimating time and cost"), ("optics", "Predicting the optics"), ("pictures", "Drawing pictures"),
+          ("alternatives", "Trying other printers and orientations"))
 
 FAILURE_ADVICE = {
     "time_limit": "Try a coarser printer profile, or split the part; very fine lattices on a large plate take longest.",
@@ -87,8 +88,11 @@ def report_context(report: dict) -> dict:
     optics_figures += [n for n in figures if n.startswith("optics_") and n not in optics_figures]
     if len((report.get("optics") or {}).get("frequencies_ghz") or []) < 2:
         optics_figures = [n for n in optics_figures if n != "optics_fwhm.png"]  # a curve of one point says nothing
-    return {"findings": numbered, "counts": severity_counts(findings), "head": headline(report),
+    missed = sum(f.get("rule") == "requirement" and f.get("severity") == "blocker" for f in findings)
+    return {"findings": numbered, "counts": severity_counts(findings), "targets_missed": missed, "head": headline(report),
             "optics_rows": optics_rows(report.get("optics")), "optics_figures": optics_figures,
+            "requirement_rows": requirement_rows(report),
+            "requirements_source": (report.get("requirements") or {}).get("source"),
             "views": [name for name in ("perspective.png", "thickness_map.png") if name in figures]}
 
 

@@ -29,9 +29,10 @@ def check_list_active_for(*, user):
 
 def family_list_for(*, user) -> list[dict]:
     """Return the user's designs grouped by family, newest activity first: latest revision and its checks."""
-    # The reports stay in the database: the list needs only their cost, read by key.
+    # The reports stay in the database: the list needs only their cost and requirements answer, read by key.
     checks = Check.objects.defer("report").annotate(cost_one=KT("report__estimate__cost__total"),
-                                                    currency=KT("report__estimate__cost__currency"))
+                                                    currency=KT("report__estimate__cost__currency"),
+                                                    meets=KT("report__meets_requirements"))
     designs = list(design_list_for(user=user).order_by("family", "-revision").prefetch_related(Prefetch("checks", checks)))
     families: dict = {}
     for d in designs:

@@ -16,5 +16,6 @@ urlpatterns = [
     path("checks/<uuid:public_id>/status.json", views.check_status, name="check_status"),
     path("checks/<uuid:public_id>/report.json", views.check_report_json, name="check_report_json"),
     path("checks/<uuid:public_id>/report.pdf", views.check_pdf, name="check_pdf"),
+    path("checks/<uuid:public_id>/findings.csv", views.check_findings_csv, name="check_findings_csv"),
     path("checks/<uuid:public_id>/files/<str:name>", views.check_file, name="check_file"),
 ]

@@ -13,6 +13,9 @@ from django.views.decorators.http import require_GET, require_POST
 
 from services.components import KINDS
 from services.errors import UnusableInput
+from services.render.tables import findings_csv
+from services.report import EXTRA_FILES
+from services.requirements import requirements_with_defaults
 from services.settings import CheckSettings
 from webapp.catalogue.selectors import material_list_active, printer_list_active
 from webapp.checks import presenters, selectors, services
@@ -52,23 +55,21 @@ def upload(request):
 
 
 def _create_checks(request, form, revision_of=None) -> list:
-    """Store each uploaded file as a design and queue its check; form errors for the files that fail."""
-    d, created = form.cleaned_data, []
-    for upload_file in d["file"]:
-        try:
-            design = services.design_create(owner=request.user, name=upload_file.name, data=upload_file.read(),
-                                            units=d["units"], revision_of=revision_of, note=d.get("note", ""))
-            created.append(services.check_create(owner=request.user, design=design, printer=d["printer"],
-                                                 material=d["material"], check_settings=d["check_settings"]))
-        except services.ApplicationError as exc:
-            form.add_error("file" if exc.code in ("empty_file", "too_large") else None, exc.message)
-    return created if not form.errors else _keep_partial(request, created)
+    """Store and queue the uploaded files that fit the limits; each refused file is named beside the field."""
+    d = form.cleaned_data
+    created, refused = services.uploads_check_create(
+        owner=request.user, uploads=d["file"], printer=d["printer"], material=d["material"],
+        check_settings=d["check_settings"], units=d["units"], revision_of=revision_of, note=d.get("note", ""))
+    for message in refused:
+        form.add_error("file", message)
+    return created if not refused else _keep_partial(request, created)
 
 
 def _keep_partial(request, created: list) -> list:
-    """Some files failed: keep the checks that were queued and say so above the form."""
+    """Some files were refused: keep the checks that were queued and say so above the form."""
     if created:
-        messages.info(request, f"{len(created)} of the files were queued; the others are listed below the form.")
+        messages.info(request, f"{len(created)} of the files were stored and queued; the others were not stored "
+                               "and are listed below the form.")
     return []
 
 
@@ -113,7 +114,7 @@ def _create_parametric(request, form, revision_of):
         design, component = services.design_create_parametric(
             owner=request.user, kind=form.kind, params=form.params(), printer=d["printer"], material=d["material"],
             revision_of=revision_of, note=d.get("note", ""))
-        settings = _own_optics(d["check_settings"], component)
+        settings = _own_requirements(_own_optics(d["check_settings"], component), d, form.kind, component)
         return services.check_create(owner=request.user, design=design, printer=d["printer"], material=d["material"],
                                      check_settings=settings)
     except UnusableInput as exc:
@@ -138,6 +139,15 @@ def _own_optics(check_settings, component):
     return replace(check_settings, optics=replace(optics, freqs_ghz=freqs, focal_length_mm=focal))
 
 
+def _own_requirements(check_settings, data: dict, kind: str, component):
+    """Lay the stated targets over the demo lab's defaults for the kind, at the generated part's own values."""
+    from dataclasses import replace
+
+    requirements = requirements_with_defaults(data["requirement_data"], kind=kind, params=component.part.parameters,
+                                              use_defaults=data.get("demo_requirements", False))
+    return replace(check_settings, requirements=requirements)
+
+
 @login_required
 def design(request, public_id):
     obj = selectors.design_get_for(user=request.user, public_id=public_id)
@@ -158,7 +168,8 @@ def _initial_options(design, latest) -> dict:
     return {"printer": latest.printer.slug, "material": latest.material.slug, "units": design.units,
             "orientation": settings.orientation, "quantities": ", ".join(str(q) for q in settings.quantities),
             "freqs": ", ".join(f"{f:g}" for f in optics.freqs_ghz), "focal_length_mm": optics.focal_length_mm,
-            "edge_taper_db": optics.edge_taper_db, "beam_waist_mm": optics.beam_waist_mm}
+            "edge_taper_db": optics.edge_taper_db, "beam_waist_mm": optics.beam_waist_mm,
+            "clear_aperture_mm": optics.clear_aperture_mm}
 
 
 @login_required
@@ -231,14 +242,20 @@ def _log_print_url(check) -> str | None:
 @require_GET
 def compare(request):
     try:
-        ids = [uuid.UUID(v) for v in request.GET.getlist("c")][:6]
+        ids = list(dict.fromkeys(uuid.UUID(v) for v in request.GET.getlist("c")))
     except ValueError:
         raise Http404("No such check.") from None
+    if len(ids) > COMPARE_AT_MOST:
+        messages.info(request, f"You ticked {len(ids)} checks; the first {COMPARE_AT_MOST} are compared side by side.")
+        ids = ids[:COMPARE_AT_MOST]
     if len(ids) < 2:
         messages.info(request, "Tick two or more finished checks to compare them.")
         return redirect("designs")
     checks = selectors.checks_get_for(user=request.user, public_ids=ids)
     return render(request, "checks/compare.html", presenters.comparison(checks))
+
+
+COMPARE_AT_MOST = 6  # columns that stay readable side by side on a 1366 px screen
 
 
 @login_required
@@ -265,8 +282,19 @@ def check_pdf(request, public_id):
     obj = selectors.check_get_for(user=request.user, public_id=public_id)
     if obj.report is None:
         raise Http404("The report is not ready.")
-    response = HttpResponse(services.check_pdf(check=obj), content_type="application/pdf")
+    response = HttpResponse(services.check_pdf(check=obj, site_root=request.build_absolute_uri("/")), content_type="application/pdf")
     response["Content-Disposition"] = f'attachment; filename="{_download_name(obj)}.pdf"'
+    return response
+
+
+@login_required
+@require_GET
+def check_findings_csv(request, public_id):
+    obj = selectors.check_get_for(user=request.user, public_id=public_id)
+    if obj.report is None:
+        raise Http404("The report is not ready.")
+    response = HttpResponse(findings_csv(obj.report), content_type="text/csv; charset=utf-8")
+    response["Content-Disposition"] = f'attachment; filename="{_download_name(obj)}-findings.csv"'
     return response
 
 
@@ -280,7 +308,7 @@ def _download_name(check) -> str:
 @require_GET
 def check_file(request, public_id, name):
     obj = selectors.check_get_for(user=request.user, public_id=public_id)
-    if obj.report is None or (name not in obj.report.get("figures", []) and name != "transmission.s2p"):
+    if obj.report is None or (name not in obj.report.get("figures", []) and name not in EXTRA_FILES):
         raise Http404("No such file in this report.")
     path = obj.files_prefix() + name
     if not default_storage.exists(path):

@@ -26,6 +26,16 @@ def resin() -> Material:
     )
 
 
+@pytest.fixture(autouse=True)
+def coarse_cell_tables(monkeypatch, tmp_path_factory):
+    """Design graded plates from 21-term rigorous tables in a private cache folder: a table then costs
+    under a second, and the model and its cache key are the same as at the full 97 terms."""
+    from services.components import graded
+
+    monkeypatch.setattr(graded, "TABLE_TERMS", 21)
+    monkeypatch.setenv("PHASEWRIGHT_CELL_TABLE_DIR", str(tmp_path_factory.getbasetemp() / "cell-tables"))
+
+
 def _printer(slug: str, *, feature: float, gap: float, layer: float, volume=(145.0, 145.0, 185.0)) -> PrinterProfile:
     return PrinterProfile(
         slug=slug, name=slug, process="vat_photopolymerisation", technology="laser_scanned", pixel_mm=layer,

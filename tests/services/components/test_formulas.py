@@ -54,5 +54,6 @@ def test_the_medium_interpolates_the_material_table():
     assert medium.n == pytest.approx(1.67332, abs=5e-6)
     assert medium.full_wave_step_mm == pytest.approx(4.45245, abs=5e-6)
     assert 0.01 < medium.tan_delta < 0.03
+    assert medium_at(material, 111.0).eps_r == pytest.approx(2.8)  # within a factor 2: extrapolated
     with pytest.raises(UnusableInput, match="90 to 110 GHz"):
-        medium_at(material, 111.0)
+        medium_at(material, 221.0)

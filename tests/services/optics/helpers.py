@@ -112,8 +112,9 @@ def designed_focus(part: Part, mat: Material, freqs_ghz, focal_mm: float, *, pix
     """
     from services.layers import build_layer_stack
     from services.optics import grids
-    from services.optics.cells import cell_footprint
-    from services.optics.evaluate import focus_metrics
+    from services.optics.aperture import clear_aperture
+    from services.optics.cells import cell_coverage
+    from services.optics.evaluate import focus_metrics, surface_depth_mm
     from services.optics.illumination import illumination_for
     from services.optics.materials import rf_values, wavelength_mm
     from services.optics.multislice import ABSORBER_WAVELENGTHS, Beam
@@ -121,15 +122,18 @@ def designed_focus(part: Part, mat: Material, freqs_ghz, focal_mm: float, *, pix
 
     rf = rf_values(mat, freqs_ghz)
     lam = wavelength_mm(rf.freqs_ghz)
-    grid = grids.analysis_grid(part, pixel_mm, float(lam.min()), period_mm)
     stack = build_layer_stack(part, pixel_mm=pixel_mm, layer_height_mm=layer_mm)
-    illum = illumination_for(edge_taper_db=edge_taper_db, beam_waist_mm=beam_waist_mm,
-                             rim_radius_mm=grids.rim_radius_mm(part), grid=grid, aperture=cell_footprint(stack, grid))
+    zone = clear_aperture(stack, axis_mm=grids.part_axis_mm(part), parameters=part.parameters)
+    grid = grids.analysis_grid(part, pixel_mm, float(lam.min()), period_mm, zone.half_extent_mm, float(lam.max()))
+    illum = illumination_for(edge_taper_db=edge_taper_db, beam_waist_mm=beam_waist_mm, rim_radius_mm=zone.rim_radius_mm,
+                             grid=grid, aperture=cell_coverage(zone.mask, stack, grid))
     sub = grids.field_subdivision(grid, pixel_mm, float(lam.min()), period_mm)
     fine = grid.subdivided(sub)
-    beam = Beam(illum.amplitude_on(fine) * cell_footprint(stack, fine), grid, sub,
-                grids.slice_mm(float(lam.min()), grids.max_index(rf.eps_r)), ABSORBER_WAVELENGTHS * float(lam.max()))
+    inside = cell_coverage(zone.mask, stack, fine) >= 0.5
+    beam = Beam(illum.amplitude_on(fine) * inside, grid, sub, grids.slice_mm(float(lam.min()), grids.max_index(rf.eps_r)),
+                ABSORBER_WAVELENGTHS * float(lam.max()), None if zone.how == "outline" else inside)
     sp = cell_sparams(stack, grid, rf, beam=beam)["nominal"]
     offset = sp.top_mm - float(part.bounds_mm[1][2])
     return [focus_metrics(sp.exit_field[i], illum, wavelength_mm=float(lam[i]), intended_mm=focal_mm,
-                          exit_offset_mm=offset, axis_index=grid.axis_index) for i in range(len(lam))]
+                          exit_offset_mm=offset, axis_index=grid.axis_index,
+                          reference_depth_mm=surface_depth_mm(sp, illum)) for i in range(len(lam))]

@@ -1,8 +1,11 @@
 """optics_report end to end: the report contract, as designed vs as printed, figures, Touchstone."""
 
+from dataclasses import replace
+
 import numpy as np
 import pytest
 
+from services.errors import UnusableInput
 from services.layers import build_layer_stack
 from services.optics import optics_report
 from services.optics.transfer import slab_airy
@@ -97,19 +100,32 @@ def test_it_reports_progress_up_to_one(zoned):
     assert calls and calls[-1] == 1.0 and all(b >= a for a, b in zip(calls, calls[1:]))
 
 
+def _read_s2p(text: str, tmp_path):
+    """Return the scikit-rf Network of a Touchstone text (scikit-rf, PyPI, reads the file)."""
+    import skrf
+
+    path = tmp_path / "part.s2p"
+    path.write_text(text)
+    return skrf.Network(str(path))
+
+
 @pytest.mark.parametrize("focal_mm", [None, 100.0])
-def test_a_meshed_slab_reproduces_the_airy_values_through_the_whole_pipeline(focal_mm):
+def test_a_meshed_slab_reproduces_the_airy_values_through_the_whole_pipeline(focal_mm, tmp_path):
     """A 40 mm box, 2 mm thick, 2.8 / 0.02 under a 30 dB taper: T = 0.750801, 0.866972, 0.678039 (Airy, Born & Wolf
     7.6), whether or not a focal length sets the multi-slice march going (it changes the focus, never the losses)."""
     part = part_from(box(40.0, 40.0, 2.0), "slab")
     bay = printer(pixel_mm=0.05, layer_mm=0.05)
     stack = build_layer_stack(part, pixel_mm=0.05, layer_height_mm=0.05)
-    d = optics_report(part=part, printed=stack, material=material(), printer=bay,
-                      settings=OpticsSettings(freqs_ghz=(75.0, 90.0, 110.0), edge_taper_db=30.0,
-                                              focal_length_mm=focal_mm)).to_dict()
+    result = optics_report(part=part, printed=stack, material=material(), printer=bay,
+                           settings=OpticsSettings(freqs_ghz=(75.0, 90.0, 110.0), edge_taper_db=30.0,
+                                                   focal_length_mm=focal_mm))
+    d = result.to_dict()
     assert d["power_transmission"] == pytest.approx([0.750801, 0.866972, 0.678039], abs=2e-4)
     t, r = slab_airy(2.8, 0.02, 2.0, np.array([75.0, 90.0, 110.0]))
     assert d["power_reflection"] == pytest.approx(np.abs(r) ** 2, abs=2e-4)
+    net = _read_s2p(result.touchstone, tmp_path)  # amplitude and phase, both reflections (e^{+j omega t})
+    assert net.s[:, 0, 0] == pytest.approx(r, abs=2e-4) and net.s[:, 1, 1] == pytest.approx(r, abs=2e-4)
+    assert net.s[:, 1, 0] == pytest.approx(t, abs=2e-4)
     assert d["transmission_loss_db"] == pytest.approx(-10 * np.log10(np.abs(t) ** 2), abs=2e-3)
     assert (d["focus"] is None) == (focal_mm is None)
     assert (d["analysis"]["multislice"] is None) == (focal_mm is None)
@@ -126,15 +142,19 @@ def test_spillover_of_a_disc_follows_the_edge_taper():
 
 
 def test_it_chooses_frequencies_and_cautions_outside_the_table():
-    """No frequency: the table's centre is used and said so; a frequency off the table is a caution."""
+    """No frequency: the material's band (ends and centre) is used and said so; near the table is a caution."""
     part = part_from(box(10.0, 10.0, 1.0), "plate")
     stack = build_layer_stack(part, pixel_mm=0.1, layer_height_mm=0.1)
-    mat = material(band_ghz=(95.0, 105.0))
+    mat = replace(material(band_ghz=(95.0, 105.0)), band_ghz=(96.0, 104.0))
     d = optics_report(part=part, printed=stack, material=mat, printer=printer(0.1, 0.1),
                       settings=OpticsSettings()).to_dict()
-    assert d["frequencies_ghz"] == pytest.approx([np.sqrt(95.0 * 105.0)]) and "No design frequency" in d["frequency_note"]
+    assert d["frequencies_ghz"] == pytest.approx([96.0, 100.0, 104.0]) and "96-104 GHz" in d["frequency_note"]
+    with pytest.raises(UnusableInput) as err:
+        optics_report(part=part, printed=stack, material=replace(mat, band_ghz=None), printer=printer(0.1, 0.1),
+                      settings=OpticsSettings())
+    assert err.value.code == "no_frequency"
     result = optics_report(part=part, printed=stack, material=mat, printer=printer(0.1, 0.1),
                            settings=OpticsSettings(freqs_ghz=(100.0, 140.0)))
     (found,) = [f for f in result.findings if f.rule == "rf_table"]
-    assert found.severity == "caution" and "140" in found.message
+    assert found.severity == "caution" and "140 GHz: eps_r 2.800" in found.message and "factor 2" in found.message
     assert result.to_dict()["outside_rf_table"] == [False, True]

@@ -8,7 +8,7 @@ import pytest
 from services.errors import UnusableInput
 from services.layers import build_layer_stack
 from services.optics.cells import CellGrid
-from services.optics.materials import attenuation_db_per_mm, default_freqs_ghz, rf_values
+from services.optics.materials import attenuation_db_per_mm, rf_values
 from services.optics.transfer import cascade, s_parameters, slab_airy
 from services.optics.transmission import cell_sparams
 from services.profiles import RFPoint
@@ -28,6 +28,15 @@ def test_attenuation_matches_pozar():
     assert attenuation_db_per_mm(11.68, 1e-4, 100.0) == pytest.approx(0.00311, abs=5e-6)
 
 
+def test_airy_slab_reflection_phase_agrees_with_tmm():
+    """The closed-form slab's r equals tmm's r conjugated for e^{+j omega t} (tmm.coh_tmm, Byrnes, PyPI)."""
+    tmm = pytest.importorskip("tmm")
+    _, r = slab_airy(2.8, 0.02, 2.0, FREQS)
+    n = np.conj(np.sqrt(2.8 * (1 - 1j * 0.02)))  # tmm's e^{-i omega t}: n + i kappa
+    ref = [tmm.coh_tmm("s", [1, n, 1], [np.inf, 2.0, np.inf], 0, 299.792458 / f)["r"] for f in FREQS]
+    assert r == pytest.approx(np.conj(ref), abs=1e-12)
+
+
 def test_airy_slab_matches_the_published_check_values():
     """The closed-form slab gives T, R and arg t of the 2 mm, 2.8 / 0.02 check case (Born & Wolf 7.6)."""
     t, r = slab_airy(2.8, 0.02, 2.0, FREQS)
@@ -44,13 +53,19 @@ def test_transfer_matrix_agrees_with_tmm_on_a_three_layer_stack():
     thick = [0.58, 3.1, 0.7]
     for f in FREQS:
         k0 = 2 * np.pi * f / 299.792458
-        s11, s21, _ = s_parameters(*cascade([(np.sqrt(e), d) for e, d in zip(layers_eps, thick)], k0))
+        s11, s21, s22 = s_parameters(*cascade([(np.sqrt(e), d) for e, d in zip(layers_eps, thick)], k0))
         # tmm uses e^{-i omega t}: n + i kappa, i.e. the conjugate index; lengths in mm like ours.
         n_list = [1, *[np.conj(np.sqrt(e)) for e in layers_eps], 1]
         ref = tmm.coh_tmm("s", n_list, [np.inf, *thick, np.inf], 0, 299.792458 / f)
         assert abs(s21) ** 2 == pytest.approx(ref["T"], abs=1e-10)
         assert abs(s11) ** 2 == pytest.approx(ref["R"], abs=1e-10)
         assert np.angle(s21) == pytest.approx(-np.angle(ref["t"]), abs=1e-9)
+        # The reflections in amplitude and phase (they go into the Touchstone file): tmm's r conjugated,
+        # S22 being tmm's r of the stack turned round.
+        assert s11 == pytest.approx(np.conj(ref["r"]), abs=1e-12)
+        back = tmm.coh_tmm("s", n_list[::-1], [np.inf, *thick[::-1], np.inf], 0, 299.792458 / f)
+        assert s22 == pytest.approx(np.conj(back["r"]), abs=1e-12)
+        assert abs(s11 - s22) > 1e-3  # an asymmetric stack: the two ends really differ
 
 
 def test_slab_agrees_with_scikit_rf_freespace_line():
@@ -94,22 +109,10 @@ def test_meshed_slab_reproduces_the_airy_values_through_the_layer_stack():
     block = sp.s21[:, inside][:, :, inside]
     assert np.abs(block) ** 2 == pytest.approx(np.broadcast_to(SLAB_T[:, None, None], block.shape), abs=1e-6)
     assert np.abs(sp.s11[:, 11, 11]) ** 2 == pytest.approx(SLAB_R, abs=1e-6)
+    _, r = slab_airy(2.8, 0.02, 2.0, FREQS)
+    assert sp.s11[:, 11, 11] == pytest.approx(r, abs=1e-6)  # amplitude and phase (Born & Wolf 7.6)
+    assert sp.s22[:, 11, 11] == pytest.approx(r, abs=1e-6)  # a uniform slab reflects alike from both sides
     assert np.abs(sp.s21[:, 0, 0]) == pytest.approx(1.0, abs=1e-12)  # the void margin is air
-
-
-def test_it_interpolates_linearly_in_log_frequency_and_flags_outside():
-    """eps and tan delta follow a straight line in log f; a frequency off the table is flagged, ends held."""
-    mat = replace(material(), rf=(RFPoint(100.0, 2.8, 0.02, "a"), RFPoint(1000.0, 3.0, 0.06, "b")))
-    rf = rf_values(mat, [100.0, np.sqrt(1e5), 1000.0, 50.0, 2000.0])
-    assert rf.eps_r == pytest.approx([2.8, 2.9, 3.0, 2.8, 3.0])
-    assert rf.tan_delta == pytest.approx([0.02, 0.04, 0.06, 0.02, 0.06])
-    assert rf.outside.tolist() == [False, False, False, True, True]
-
-
-def test_default_frequencies_sit_around_the_table_centre():
-    """With no design frequency the check uses the geometric centre of the table and +-10 %."""
-    freqs = default_freqs_ghz(material(band_ghz=(100.0, 400.0)))
-    assert freqs == pytest.approx((180.0, 200.0, 220.0))
 
 
 def test_it_refuses_a_material_without_rf_data():

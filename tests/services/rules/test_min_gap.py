@@ -50,3 +50,15 @@ def test_a_horizontal_gap_between_layers_is_a_gap_along_z(stack_of, printer, run
     (f,) = [f for f in out.findings if f.severity != "note"]
     assert abs(f.measured - 0.2) <= 0.05  # whole layers: within one layer of the drawn gap
     assert 0.5 <= f.location_mm[2] <= 0.7 and "horizontal gap" in f.message
+
+
+def test_a_finding_picture_is_titled_with_the_rule_in_words(stack_of, printer, run_check, monkeypatch):
+    """The picture's title names the rule as the report does ("Minimum gap"), never its code name."""
+    from services import pictures
+
+    titles = []
+    drawn = pictures.layer_crop_png
+    monkeypatch.setattr(pictures, "layer_crop_png", lambda *a, **k: titles.append(k["title"]) or drawn(*a, **k))
+    part, stack = stack_of(slotted_plate([0.12]))
+    run_check(min_gap, part, stack, printer(min_gap={"xy_mm": 0.3, "severity": "caution"}))
+    assert titles and all(t.startswith("Minimum gap: layer ") for t in titles)

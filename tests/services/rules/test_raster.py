@@ -39,15 +39,3 @@ def test_a_disk_spans_its_diameter_and_fits_walls_as_wide(diameter):
         mask = np.zeros((60, 60), bool)
         mask[5:55, 20:20 + width] = True
         assert raster.open_disk(mask, diameter)[30, 20:20 + width].all() == (width >= diameter)
-
-
-@pytest.mark.parametrize("width", [1, 2, 3, 4, 7, 8])
-def test_ray_width_reads_a_wall_at_every_pixel(width):
-    """The width along the line from the nearest void is the wall's pixel count, odd or even."""
-    mask = np.zeros((40, 40), bool)
-    mask[5:35, 10:10 + width] = True
-    rows, cols = raster.coords(mask[10:30] & True)
-    rows = rows + 10
-    _, numbers = raster.nearest_void(mask)
-    near = raster.void_index(mask, numbers[rows, cols])
-    assert np.all(raster.ray_widths(mask, rows, cols, near, 20) == width)

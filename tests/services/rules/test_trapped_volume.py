@@ -48,3 +48,34 @@ def test_extrusion_only_notes_a_sealed_cavity(stack_of, printer, run_check):
     profile = printer(process="material_extrusion", trapped_volume={"severity": "note", "cup_severity": "note", "drain_hole_mm": None})
     (f,) = run_check(trapped_volume, part, stack, profile).findings
     assert f.severity == "note" and "drain" not in f.message
+
+
+def _grooved_disc(groove_mm: tuple[float, float]):
+    """A 30 mm disc, 3 mm thick, with a 2 mm deep ring groove open at the top (away from the build plate)."""
+    disc = Manifold.cylinder(3.0, 15.0, circular_segments=96)
+    ring = Manifold.cylinder(2.0, groove_mm[1], circular_segments=96) - Manifold.cylinder(2.0, groove_mm[0],
+                                                                                          circular_segments=96)
+    return (disc - ring.translate((0.0, 0.0, 1.0))).translate((15.0, 15.0, 0.0))
+
+
+def test_a_generated_optics_cup_is_vented_in_its_mount_or_the_part_is_turned(stack_of, printer, run_check):
+    """A generated lens of 20 mm aperture in a 5 mm flange: a groove in the flange gets a vent there; a groove in
+    the optical zone gets no vent (it would cut the optic) but the advice to turn the part (common practice)."""
+    from dataclasses import replace
+
+    declared = {"kind": "plano-convex", "diameter_mm": 20.0, "flange_width_mm": 5.0}
+    for groove, in_mount in (((12.0, 14.0), True), ((5.0, 7.0), False)):
+        part, stack = stack_of(_grooved_disc(groove))
+        (f,) = run_check(trapped_volume, replace(part, parameters=declared), stack,
+                         printer(trapped_volume=LIMITS)).findings
+        assert f.severity == "caution" and "suction" in f.message
+        if in_mount:
+            assert "in the mount outside the optical zone" in f.message
+            x, y, _ = f.location_mm
+            assert 12.0 - 0.1 <= ((x - 15.0) ** 2 + (y - 15.0) ** 2) ** 0.5 <= 14.0 + 0.1  # in the groove, in the flange
+        else:
+            assert "add a vent hole" not in f.message and "inside the optical zone" in f.message
+            assert "turn the part" in f.message
+        # The same part uploaded (no generator's word on its optic): the vent goes where the cavity is.
+        (plain,) = run_check(trapped_volume, part, stack, printer(trapped_volume=LIMITS)).findings
+        assert "vent hole of 2.5 mm" in plain.message and "optical zone" not in plain.message

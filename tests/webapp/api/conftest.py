@@ -127,7 +127,7 @@ def anonymous(spec, db):
 @pytest.fixture
 def no_worker():
     """Record the checks that would be sent to a worker, without a broker."""
-    with mock.patch("webapp.checks.tasks.run_check.delay") as delay:
+    with mock.patch("webapp.checks.queue.send_run_check") as delay:
         yield delay
 
 

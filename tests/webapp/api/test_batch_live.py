@@ -14,7 +14,7 @@ from unittest import mock
 import pytest
 from django.conf import settings
 
-from services import batch
+from services.cli import batch
 from services.cli import main
 from tests.webapp.parts import box_stl, finned_plate_stl
 from tests.webapp.worker import broker, worker_process

@@ -69,6 +69,16 @@ def test_it_validates_settings(as_alice, alice_design, no_worker):
     assert not Check.objects.exists()
 
 
+def test_it_keeps_a_given_clear_aperture(as_alice, alice_design, no_worker):
+    """The optical zone's diameter is stored with the check's settings; a non-positive one is refused."""
+    response = as_alice.post("checks", check_request(alice_design["id"], optics={"freqs_ghz": [140.0],
+                                                                               "clear_aperture_mm": 30.0}))
+    assert response.status_code == 201
+    assert Check.objects.get().settings["optics"]["clear_aperture_mm"] == 30.0
+    response = as_alice.post("checks", check_request(alice_design["id"], optics={"clear_aperture_mm": 0}))
+    assert response.json()["code"] == "invalid_request"
+
+
 def test_it_reports_status_stage_and_progress(as_alice, alice_check):
     """A running check shows its stage and progress."""
     Check.objects.filter(public_id=alice_check["id"]).update(status="running", stage="slicing", progress=0.25)
@@ -138,3 +148,27 @@ def test_charlie_gets_404_for_everything_of_alices(as_charlie, done_check, no_wo
     assert as_charlie.post("checks", check_request(done_check["design"])).status_code == 404
     assert as_charlie.get("checks").json()["count"] == 0
     assert Check.objects.get(public_id=cid).status == "done"
+
+
+def test_requirements_are_checked_and_answered_beside_the_verdict(as_alice, alice_design, no_worker):
+    """The 10 x 8 x 2 mm box against a 1.5 mm thickness target: meets_requirements no, the verdict untouched."""
+    targets = {"max_thickness_mm": 1.5, "max_diameter_mm": 20}
+    body = as_alice.post("checks", check_request(alice_design["id"], requirements=targets)).json()
+    assert body["settings"]["requirements"]["max_thickness_mm"] == 1.5 and body["meets_requirements"] is None
+    checks.check_run(check_id=Check.objects.get(public_id=body["id"]).pk)
+    done = as_alice.get(f"checks/{body['id']}").json()
+    assert done["meets_requirements"] == done["summary"]["meets_requirements"] == "no"
+    report = as_alice.get(f"checks/{body['id']}/report").json()
+    found = [f for f in report["findings"] if f["rule"] == "requirement"]
+    assert {f["severity"] for f in found} == {"blocker", "note"} and report["verdict"] == done["verdict"]
+    plain = as_alice.post("checks", check_request(alice_design["id"])).json()
+    assert "requirements" not in plain["settings"]
+
+
+def test_it_refuses_requirements_that_make_no_sense(as_alice, alice_design, no_worker):
+    """A percentage for a fraction, or a focal length without its tolerance, is a 400 with the sentence."""
+    for targets, words in (({"min_strehl": 80}, "fraction"), ({"focal_length_mm": 72}, "tolerance")):
+        response = as_alice.post("checks", check_request(alice_design["id"], requirements=targets))
+        assert response.status_code == 400 and response.json()["code"] == "bad_requirement"
+        assert words in response.json()["message"]
+    assert not Check.objects.exists()

@@ -49,3 +49,36 @@ def test_a_log_entered_by_mistake_is_deleted(as_alice, done_check):
     log = as_alice.post("print-logs", _log(done_check["id"])).json()
     assert as_alice.delete(f"print-logs/{log['id']}").status_code == 204
     assert as_alice.get(f"print-logs/{log['id']}").status_code == 404
+
+
+@pytest.mark.parametrize("seconds", [float("inf"), float("nan"), 3_600_000.0])
+def test_an_infinite_or_absurd_time_is_refused(as_alice, done_check, seconds):
+    """JSON Infinity, NaN and 1000 h against a minutes-long estimate answer 400 with the field; nothing is stored."""
+    response = as_alice.post("print-logs", _log(done_check["id"], actual_print_time_s=seconds))
+    assert response.status_code == 400 and response.json()["errors"][0]["loc"] == ["actual_print_time_s"]
+    assert not PrintLog.objects.exists()
+
+
+def test_a_lab_manager_accepts_a_designers_log(as_alice, as_bob, as_charlie, done_check):
+    """alice's log waits (accepted_at null); she gets 403 accepting it, charlie 404; bob accepts it (200)."""
+    log = as_alice.post("print-logs", _log(done_check["id"])).json()
+    assert log["accepted_at"] is None and log["accepted_by"] is None
+    assert as_alice.post(f"print-logs/{log['id']}/accept").status_code == 403
+    assert as_charlie.post(f"print-logs/{log['id']}/accept").status_code == 404
+    accepted = as_bob.post(f"print-logs/{log['id']}/accept")
+    assert accepted.status_code == 200 and accepted.json()["accepted_by"] == "bob"
+    assert PrintLog.objects.get().accepted_at is not None
+
+
+def test_a_lab_managers_own_log_counts_at_once(as_bob, done_check):
+    """bob's log is accepted as it is made."""
+    log = as_bob.post("print-logs", _log(done_check["id"])).json()
+    assert log["accepted_by"] == "bob" and log["accepted_at"] is not None
+
+
+def test_a_stored_infinite_row_is_listed_without_a_number(as_alice, as_bob, done_check):
+    """A row stored before times were checked lists with a null time and ratio, not an error."""
+    log = as_alice.post("print-logs", _log(done_check["id"])).json()
+    PrintLog.objects.update(actual_print_time_s=float("inf"))
+    row = as_bob.get("print-logs").json()["items"][0]
+    assert row["id"] == log["id"] and row["actual_print_time_s"] is None and row["time_ratio"] is None

@@ -41,7 +41,7 @@ def estimated_check(owner, printer, material, *, print_time_s: float, material_m
 def run_real_check(owner, printer, material) -> Check:
     """Submit a small box and run the whole pipeline in this process; return the finished check."""
     design = check_services.design_create(owner=owner, name="box.stl", data=box_stl(), units="mm")
-    with mock.patch("webapp.checks.tasks.run_check.delay"):
+    with mock.patch("webapp.checks.queue.send_run_check"):
         check = check_services.check_create(owner=owner, design=design, printer=printer, material=material,
                                             check_settings=CheckSettings(quantities=(1, 5)))
     check_services.check_run(check_id=check.pk)

@@ -145,3 +145,30 @@ def test_the_seeded_form_round_trips(bob_client, seeded, kind, slug):
     assert response.status_code == 302, response.content.decode()[:3000]
     entry.refresh_from_db()
     assert entry.version == 1
+
+
+def test_seeding_updates_never_edited_starters_and_leaves_edited_ones(bob, resin, seeded):
+    """A starter still at its first version takes the new starter data as version 2; a lab's edit is kept."""
+    from webapp.catalogue.models import Material
+
+    old = {**resin.data, "band_ghz": None, "rf": [resin.data["rf"][-1]]}
+    Material.objects.filter(pk=resin.pk).update(data=old)
+    resin.versions.filter(version=1).update(data=old)
+    pla = Material.objects.get(slug="pla")
+    services.material_update(user=bob, material=pla, data={**pla.data, "price": 30.0}, note="new supplier")
+    services.catalogue_seed()
+    resin.refresh_from_db()
+    pla.refresh_from_db()
+    assert resin.version == 2 and resin.data["band_ghz"] == [75.0, 110.0] and len(resin.data["rf"]) == 3
+    assert pla.version == 2 and pla.data["price"] == 30.0
+    services.catalogue_seed()  # a second run changes nothing
+    resin.refresh_from_db()
+    assert resin.version == 2
+
+
+def test_seeding_again_makes_no_version(seeded):
+    """Re-running the seed over an up-to-date catalogue leaves every entry at version 1."""
+    from webapp.catalogue.models import Material, Printer
+
+    services.catalogue_seed()
+    assert {e.version for e in [*Printer.objects.all(), *Material.objects.all()]} == {1}

@@ -15,14 +15,14 @@ OPTIONS = {"printer": "bay1-lcd-resin", "material": "standard-resin", "orientati
 
 
 def _post(client, url, data):
-    with mock.patch("webapp.checks.tasks.run_check.delay") as delay:
+    with mock.patch("webapp.checks.queue.send_run_check") as delay:
         return client.post(url, data), delay
 
 
 def test_each_dropped_file_becomes_a_design_and_a_check(alice_client, seeded, django_capture_on_commit_callbacks):
     """Two files in one upload give two designs and two queued checks, and the list to follow them."""
     files = [SimpleUploadedFile("a.stl", box_stl()), SimpleUploadedFile("b.stl", finned_plate_stl())]
-    with mock.patch("webapp.checks.tasks.run_check.delay") as delay, django_capture_on_commit_callbacks(execute=True):
+    with mock.patch("webapp.checks.queue.send_run_check") as delay, django_capture_on_commit_callbacks(execute=True):
         response = alice_client.post(reverse("upload"), {"file": files, "units": "mm", **OPTIONS})
     assert response.status_code == 302 and response["Location"] == reverse("designs")
     assert sorted(Design.objects.values_list("name", flat=True)) == ["a.stl", "b.stl"]
@@ -115,3 +115,39 @@ def test_changed_parameters_make_a_new_revision(alice_client, seeded):
     second = Design.objects.exclude(pk=first.pk).get()
     assert response.status_code == 302 and second.family == first.family and second.revision == 2
     assert second.parameters["focal_length_mm"] == 80.0 and second.note == "longer focus"
+
+
+def test_the_upload_form_asks_for_the_unit_of_a_unitless_file(alice_client, seeded):
+    """No unit chosen, or "as the file states" for an STL: refused beside the units field; nothing is stored."""
+    for units, words in (("", "Choose the unit the file was drawn in"), ("file", "carries no unit of its own")):
+        response, delay = _post(alice_client, reverse("upload"), {"file": SimpleUploadedFile("a.stl", box_stl()),
+                                                                  "units": units, **OPTIONS})
+        error = re.search(r'<p class="error" id="id_units_error">([^<]*)</p>', response.content.decode())
+        assert response.status_code == 400 and error and words in error.group(1)
+    assert not Design.objects.exists()
+
+
+def test_requirements_from_the_upload_form_reach_the_check(alice_client, seeded):
+    """Stated targets are stored with the check's settings; a percentage for a fraction is refused beside it."""
+    data = {"file": SimpleUploadedFile("a.stl", box_stl()), "units": "mm", **OPTIONS,
+            "req_band": "130:150", "req_max_thickness_mm": "1.5", "req_loss_basis": "each_frequency"}
+    response, _ = _post(alice_client, reverse("upload"), data)
+    assert response.status_code == 302
+    stated = Check.objects.get().settings["requirements"]
+    assert stated["band_ghz"] == [130.0, 150.0] and stated["max_thickness_mm"] == 1.5 and stated["source"] == "designer"
+    bad = {**data, "file": SimpleUploadedFile("b.stl", box_stl()), "req_min_strehl": "80"}
+    response, _ = _post(alice_client, reverse("upload"), bad)
+    error = re.search(r'<p class="error" id="id_req_min_strehl_error">([^<]*)</p>', response.content.decode())
+    assert response.status_code == 400 and error and "fraction between 0 and 1" in error.group(1)
+
+
+def test_a_generated_lens_can_start_from_the_demo_labs_targets(alice_client, seeded):
+    """Ticked, the demo defaults follow the part's own frequency and focus; a stated target wins over its default."""
+    data = {"part_diameter_mm": "60", "part_focal_length_mm": "72", "part_freq_ghz": "140",
+            "part_min_thickness_mm": "1", "part_flange_width_mm": "0", "part_flange_thickness_mm": "2", **OPTIONS,
+            "demo_requirements": "on", "req_min_strehl": "0.9"}
+    response, _ = _post(alice_client, reverse("generate", args=["zoned"]), data)
+    assert response.status_code == 302, response.content.decode()[:2000]
+    stated = Check.objects.get().settings["requirements"]
+    assert "invented" in stated["source"] and stated["band_ghz"] == [133.0, 147.0]
+    assert stated["focal_length_mm"] == 72.0 and stated["min_strehl"] == 0.9

@@ -95,12 +95,13 @@ def test_a_designer_checks_parts_in_the_browser(browser, live_server, alice, see
         dropped = page.evaluate_handle(DROP_FILE, ["finned.stl", list(finned_plate_stl())])
         page.dispatch_event("#dropzone", "drop", {"dataTransfer": dropped})
         assert page.text_content("#file-list").startswith("finned.stl")
+        page.select_option("#id_units", "mm")
         page.fill("#id_freqs", "140")
         page.click("#submit-button")
         page.wait_for_url("**/checks/*/")
         page.reload()  # before any worker runs: the page comes back showing the same waiting check
         assert page.get_attribute("#progress-bar", "aria-valuenow") == "0"
-        assert page.text_content("#status-line") == "Waiting for a worker"
+        assert page.text_content("#status-line") == "Waiting for a worker"  # the same words as in the lists
 
         with worker_process():
             _follow_to_report(page, progress)
@@ -146,7 +147,7 @@ def test_who_sees_what(browser, live_server, alice, bob, charlie, seeded, django
     from webapp.checks import services
 
     design = services.design_create(owner=alice, name="box.stl", data=box_stl(), units="mm")
-    with mock.patch("webapp.checks.tasks.run_check.delay"):
+    with mock.patch("webapp.checks.queue.send_run_check"):
         check = services.check_create(owner=alice, design=design, printer=Printer.objects.get(slug="bay1-lcd-resin"),
                                       material=Material.objects.get(slug="standard-resin"), check_settings=CheckSettings())
     stranger = _sign_in(browser, live_server, "charlie", "charlie-password")

@@ -9,6 +9,8 @@ from django.http import FileResponse, HttpResponse
 from ninja import Field, Query, Router, Schema, Status
 from ninja.pagination import paginate
 
+from services.report import EXTRA_FILES
+from services.requirements import Requirements
 from services.settings import CheckSettings, OpticsSettings
 from webapp.api import selectors, services
 from webapp.api.endpoints.common import Pages, errors
@@ -50,8 +52,11 @@ def check_create(request, body: CheckIn):
 def _settings(body: CheckIn) -> CheckSettings:
     o = body.optics
     optics = OpticsSettings(freqs_ghz=tuple(o.freqs_ghz), focal_length_mm=o.focal_length_mm,
-                            edge_taper_db=o.edge_taper_db, beam_waist_mm=o.beam_waist_mm)
-    return CheckSettings(orientation=body.orientation, quantities=tuple(body.quantities), optics=optics)
+                            edge_taper_db=o.edge_taper_db, beam_waist_mm=o.beam_waist_mm,
+                            clear_aperture_mm=o.clear_aperture_mm)
+    requirements = None if body.requirements is None else Requirements.from_dict(body.requirements.dict(exclude_none=True))
+    return CheckSettings(orientation=body.orientation, quantities=tuple(body.quantities), optics=optics,
+                         requirements=requirements)
 
 
 @router.get("/checks/{uuid:check_id}", response={200: CheckOut, **errors(404)}, url_name="check_get")
@@ -87,7 +92,7 @@ def check_file(request, check_id: UUID, name: str):
     """Return one of the report's pictures (listed in its ``figures``) or its Touchstone file."""
     check = check_get_for(user=request.auth, public_id=check_id)
     report, path = _report_of(check), check.files_prefix() + name
-    if (name not in report.get("figures", []) and name != "transmission.s2p") or not default_storage.exists(path):
+    if (name not in report.get("figures", []) and name not in EXTRA_FILES) or not default_storage.exists(path):
         raise ApplicationError("no_such_file", f"The report has no file {name!r}; its pictures are listed in "
                                "'figures'.", 404)
     content_type = mimetypes.guess_type(name)[0] if name.endswith(".png") else "application/octet-stream"
@@ -102,6 +107,6 @@ def check_pdf(request, check_id: UUID):
     """Return the report as a PDF."""
     check = check_get_for(user=request.auth, public_id=check_id)
     _report_of(check)
-    response = HttpResponse(checks_services.check_pdf(check=check), content_type="application/pdf")
+    response = HttpResponse(checks_services.check_pdf(check=check, site_root=request.build_absolute_uri("/")), content_type="application/pdf")
     response["Content-Disposition"] = f'attachment; filename="report-{check.public_id}.pdf"'
     return response

@@ -9,9 +9,10 @@ from ninja import Field, File, Form, Query, Router, Schema, Status, UploadedFile
 from ninja.pagination import paginate
 from pydantic import BeforeValidator
 
+from services.sizes import over_limit_text
 from webapp.api import selectors, services
 from webapp.api.endpoints.common import Pages, errors
-from webapp.api.schemas import DesignOut, Kind, ParametricIn, Units
+from webapp.api.schemas import NO_NUL, DesignOut, Kind, ParametricIn, Units
 from webapp.checks.selectors import design_get_for
 from webapp.checks.services import ApplicationError
 
@@ -32,7 +33,7 @@ IsoDatetime = Annotated[datetime, BeforeValidator(_iso_8601)]
 
 
 class DesignFilters(Schema):
-    q: str = Field("", max_length=200, description="part of the design's name")
+    q: str = Field("", max_length=200, pattern=NO_NUL, description="part of the design's name")
     sha256: str = Field("", pattern="^([0-9a-fA-F]{64})?$", description="the sha256 of the uploaded bytes")
     kind: Kind | Literal[""] = Field("", description="parametric designs of this component kind")
     parametric: bool | None = None
@@ -49,8 +50,8 @@ def design_list(request, filters: Query[DesignFilters]):
 
 @router.post("/designs", response={200: DesignOut, 201: DesignOut, **errors(400, 403, 404, 413, 422)},
              url_name="design_upload")
-def design_upload(request, file: File[UploadedFile], units: Form[Units] = "", name: Form[str] = "",
-                  revision_of: str = Form("", pattern=UUID_OR_NOTHING), note: Form[str] = ""):
+def design_upload(request, file: File[UploadedFile], units: Form[Units] = "", name: str = Form("", pattern=NO_NUL),
+                  revision_of: str = Form("", pattern=UUID_OR_NOTHING), note: str = Form("", pattern=NO_NUL)):
     """Upload a mesh (STL, 3MF, OBJ, PLY); the same bytes and units again answer 200 with the same design."""
     parent = design_get_for(user=request.auth, public_id=UUID(revision_of)) if revision_of else None
     design, created = services.design_get_or_create(owner=request.auth, name=name or file.name or "unnamed",
@@ -63,12 +64,11 @@ def _read(file: UploadedFile) -> bytes:
     """Read the upload, refusing it before reading when it is over the size limit."""
     limit = settings.PHASEWRIGHT_MAX_UPLOAD_BYTES
     if file.size is not None and file.size > limit:
-        raise ApplicationError("too_large", f"{file.name}: {file.size / 2**20:.0f} MB is over the "
-                               f"{limit / 2**20:.0f} MB limit.", status=413)
+        raise ApplicationError("too_large", f"{file.name}: {over_limit_text(file.size, limit)}.", status=413)
     return file.read()
 
 
-@router.post("/designs/parametric", response={200: DesignOut, 201: DesignOut, **errors(400, 403, 404, 422)},
+@router.post("/designs/parametric", response={200: DesignOut, 201: DesignOut, **errors(400, 403, 404, 413, 422)},
              url_name="design_parametric")
 def design_parametric(request, body: ParametricIn):
     """Build a part from component parameters (see /components) and store it as a design."""

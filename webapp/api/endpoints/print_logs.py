@@ -7,18 +7,18 @@ the logs of their own checks.
 from uuid import UUID
 
 from django.http import HttpResponse
-from ninja import Query, Router, Schema, Status
+from ninja import Field, Query, Router, Schema, Status
 from ninja.pagination import paginate
 
 from webapp.api.endpoints.common import Pages, errors
-from webapp.api.schemas import PrintLogIn, PrintLogOut
+from webapp.api.schemas import NO_NUL, PrintLogIn, PrintLogOut
 from webapp.catalogue import selectors, services
 
 router = Router(tags=["print logs"])
 
 
 class PrintLogFilters(Schema):
-    printer: str = ""
+    printer: str = Field("", pattern=NO_NUL)
 
 
 @router.get("/print-logs", response={200: list[PrintLogOut], **errors(422)}, url_name="print_log_list")
@@ -31,7 +31,7 @@ def print_log_list(request, filters: Query[PrintLogFilters]):
 
 @router.post("/print-logs", response={201: PrintLogOut, **errors(400, 403, 404, 422)}, url_name="print_log_create")
 def print_log_create(request, body: PrintLogIn):
-    """Log a finished print of a checked part; the printer's time calibration then counts it."""
+    """Log a finished print of a checked part; the printer's time calibration counts it once a lab manager accepts it."""
     check = selectors.check_for_logging(user=request.auth, public_id=body.check)
     log = services.print_log_create(user=request.auth, check=check, copies=body.copies,
                                     actual_print_time_s=body.actual_print_time_s, succeeded=body.succeeded,
@@ -43,6 +43,14 @@ def print_log_create(request, body: PrintLogIn):
 def print_log_get(request, log_id: UUID):
     """Return one print log."""
     return selectors.print_log_get_for(user=request.auth, public_id=log_id)
+
+
+@router.post("/print-logs/{uuid:log_id}/accept", response={200: PrintLogOut, **errors(403, 404)},
+             url_name="print_log_accept")
+def print_log_accept(request, log_id: UUID):
+    """Accept a designer's log into the printer's calibration (lab managers only; theirs count at once)."""
+    log = services.print_log_accept(user=request.auth, log=selectors.print_log_get_for(user=request.auth, public_id=log_id))
+    return selectors.print_log_get_for(user=request.auth, public_id=log.public_id)
 
 
 @router.delete("/print-logs/{uuid:log_id}", response={204: None, **errors(403, 404)}, url_name="print_log_delete")

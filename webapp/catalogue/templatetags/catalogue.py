@@ -20,6 +20,21 @@ def path_label(path: str) -> str:
 
 
 @register.filter
+def rule_title(rule: str) -> str:
+    """Return a rule family's name in words ("min_gap" -> "Minimum gap")."""
+    from webapp.catalogue.schema import RULES
+
+    return RULES[rule][0] if rule in RULES else str(rule).replace("_", " ").capitalize()
+
+
+@register.filter
+def limit_label(path: str) -> str:
+    """Return one limit's label within its rule's row ("rules.min_gap.xy_mm" -> "in XY, mm")."""
+    label = label_of(path)
+    return label.split(" – ", 1)[1] if " – " in label else label.rsplit(".", 1)[-1].replace("_", " ")
+
+
+@register.filter
 def value_text(value) -> str:
     """Return a stored value as a person reads it: lists joined, None as a dash."""
     if value is None:

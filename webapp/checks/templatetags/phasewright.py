@@ -14,6 +14,13 @@ def verdict_label(value: str) -> str:
 
 
 @register.filter
+def meets_label(value: str) -> str:
+    from services.render.tables import meets_label as label
+
+    return label(value)
+
+
+@register.filter
 def duration(seconds) -> str:
     """Return seconds as '3 h 05 min' or '12 min'."""
     try:
@@ -52,21 +59,29 @@ def zip_lists(a, b):
 
 @register.filter
 def rule_label(value: str) -> str:
-    from services.report_tables import rule_label as label
+    from services.render.tables import rule_label as label
 
     return label(value or "")
 
 
 @register.filter
 def quote_label(value: str) -> str:
-    from services.report_tables import quote_label as label
+    from services.render.tables import quote_label as label
 
     return label(value or "")
 
 
 @register.filter
+def measured(finding: dict) -> str:
+    """Return what a finding measured, with its unit and limit, in words."""
+    from services.render.tables import measured_text
+
+    return measured_text(finding)
+
+
+@register.filter
 def where(finding: dict) -> str:
-    from services.report_tables import location_text
+    from services.render.tables import location_text
 
     return location_text(finding or {})
 

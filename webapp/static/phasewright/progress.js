@@ -37,9 +37,9 @@
     const labels = Object.fromEntries(stages.map(li => [li.dataset.stage, li.dataset.label]));
     follow(card, function (s) {
       document.getElementById("percent").textContent = setBar(document.getElementById("progress-bar"), s.progress);
-      document.getElementById("status").textContent = s.status;
-      document.getElementById("status-line").textContent =
-        s.status === "queued" ? "Waiting for a worker" : "Checking: " + (labels[s.stage] || s.stage);
+      document.getElementById("status").textContent = s.label;
+      document.getElementById("status-line").textContent = s.status === "queued"
+        ? s.label.charAt(0).toUpperCase() + s.label.slice(1) : "Checking: " + (labels[s.stage] || s.stage);
       const at = stages.findIndex(li => li.dataset.stage === s.stage);
       stages.forEach(function (li, i) {
         const state = s.status === "done" || (at >= 0 && i < at) ? "done" : i === at ? "current" : "waiting";
@@ -53,9 +53,9 @@
     if (ENDED.includes(row.dataset.status)) return;
     follow(row, function (s) {
       setBar(row.querySelector(".progress"), s.progress);
-      row.querySelector(".mini-stage").textContent = s.status === "queued" ? "waiting" : s.stage;
+      row.querySelector(".mini-stage").textContent = s.status === "queued" ? s.label : s.stage_label.toLowerCase();
     }, function (s) {
-      row.querySelector(".mini-stage").textContent = s.status;
+      row.querySelector(".mini-stage").textContent = s.label;
       row.dataset.status = s.status;
     });
   });

@@ -1,0 +1,239 @@
+"""What must change: for a part with blockers, the changes that remove them, each tried, not guessed.
+
+For each candidate (the part turned over or onto its side on the same printer; another printer of the lab
+that can print the material; another printer and material of the lab) the printability part of the check
+is run again: orientation, slicing at that printer's grid, every design rule, build fit and the estimate.
+The best three that remove blockers are kept, with the numbers they would give. The optics are not re-run
+(a new material changes them; the suggestion says so).
+"""
+
+from __future__ import annotations
+
+import time
+from collections.abc import Callable, Sequence
+from dataclasses import asdict, dataclass, replace
+
+import numpy as np
+
+from services import layers
+from services.errors import UnusableInput
+from services.findings import Finding
+from services.part import Part
+from services.profiles import Material, PrinterProfile, check_pairing
+from services.rules import run_rules
+from services.rules.build_fit import check_build_fit
+from services.settings import CheckSettings
+
+# Orientations worth trying for a flat optic: upside down first, then on its sides.
+TURNS = {"+z": ("-z", "+x", "+y"), "-z": ("+z", "+x", "+y")}
+SHOWN = 3
+
+
+@dataclass(frozen=True, slots=True)
+class TriedChange:
+    """A change the check tried: in words, its kind, and the printer and material (slugs) it leads to."""
+
+    change: str
+    kind: str  # "orientation" | "scale" | "material" | "printer" | "printer_and_material"
+    printer: str
+    material: str
+
+
+@dataclass(frozen=True, slots=True)
+class Alternative(TriedChange):
+    """One change tried for the blockers, and what the check found after it."""
+
+    orientation: str
+    blockers: int
+    cautions: int
+    blockers_removed: tuple[str, ...]
+    print_time_s: float | None
+    cost_one: float | None
+    currency: str | None
+    note: str | None = None
+    scale: float | None = None  # the uniform scale of a "scale" change
+
+    def to_dict(self) -> dict:
+        d = asdict(self)
+        d["blockers_removed"] = list(self.blockers_removed)
+        return d
+
+
+def what_must_change(*, part: Part, printer: PrinterProfile, material: Material, settings: CheckSettings,
+                     findings: Sequence[Finding],
+                     catalogue: Sequence[tuple[PrinterProfile, Material]] | Callable[[], Sequence] = (),
+                     budget_s: float = 60.0, progress: Callable[[float], None] | None = None) -> list[Alternative]:
+    """Return up to three changes that remove blockers from the part, best first (empty: no blockers to remove).
+
+    ``catalogue`` is the lab's (printer, material) pairs to try besides the part's own, or a function returning
+    them (called only when something blocks, so a clean part costs no catalogue read); ``budget_s`` bounds the
+    work (candidates are tried cheapest first, and the search stops when the budget is spent).
+    """
+    blockers = [f for f in findings if f.severity == "blocker"]
+    # Mesh defects go with the part wherever it is printed: no printer or orientation removes them.
+    if not blockers or any(f.rule == "mesh_health" for f in blockers):
+        return []
+    before = {f.rule for f in blockers}
+    pairs = catalogue() if callable(catalogue) else catalogue
+    candidates = _candidates(printer, material, settings.orientation, pairs)
+    candidates = _one_material_per_printer(candidates)
+    factor = scale_to_clear(blockers)
+    if factor is not None:  # after the orientations: a scaled part is a different design
+        candidates.insert(len(TURNS.get(settings.orientation, ("+z",))), ("scale", printer, material, settings.orientation))
+    tried: list[Alternative] = []
+    start = time.monotonic()
+    for i, (kind, cand_printer, cand_material, orientation) in enumerate(candidates):
+        if time.monotonic() - start > budget_s:
+            break
+        scaled = kind == "scale"
+        tried.append(_try(scaled_part(part, factor) if scaled else part, kind, cand_printer, cand_material,
+                          orientation, before, blockers, material,
+                          same_frame=orientation == settings.orientation and not scaled, factor=factor))
+        if progress:
+            progress((i + 1) / len(candidates))
+    better = [a for a in tried if a.blockers < len(blockers) or a.blockers_removed]
+    better.sort(key=lambda a: (a.blockers, a.cautions, a.kind != "orientation", a.cost_one or 0.0))
+    return better[:SHOWN]
+
+
+WIDTH_RULES = ("min_feature", "min_gap", "min_hole")
+MAX_SCALE = 3.0  # beyond this a scaled part is a new design, not a fix
+
+
+def scale_to_clear(blockers: Sequence[Finding]) -> float | None:
+    """Return the uniform scale that brings every too-narrow width blocker up to its limit (2 % over, rounded up to
+    the hundredth), or None when another kind of blocker stands or the scale would pass ``MAX_SCALE``."""
+    widths = [f for f in blockers if f.rule in WIDTH_RULES and f.measured and f.limit]
+    if not widths or len(widths) != len(blockers):
+        return None
+    factor = max(f.limit / f.measured for f in widths) * 1.02
+    factor = np.ceil(factor * 100) / 100
+    return float(factor) if 1.0 < factor <= MAX_SCALE else None
+
+
+def scaled_part(part: Part, factor: float) -> Part:
+    """Return the part with every size times ``factor`` about its lowest corner (still on the plate)."""
+    lo = part.bounds_mm[0]
+    return replace(part, vertices_mm=(np.asarray(part.vertices_mm, dtype=np.float64) - lo) * factor + lo,
+                   volume_mm3=part.volume_mm3 * factor ** 3)
+
+
+def _candidates(printer, material, orientation, catalogue):
+    """Return (kind, printer, material, orientation) to try, the cheapest and least disruptive first."""
+    out = [("orientation", printer, material, turn) for turn in TURNS.get(orientation, ("+z",))]
+    # The design rules depend on the printer, not the material: another material on the same printer changes none.
+    out += [(kind, p, m, orientation) for kind, p, m in other_pairings(printer, material, catalogue) if kind != "material"]
+    return out
+
+
+KINDS = ("material", "printer", "printer_and_material")
+
+
+def other_pairings(printer, material, catalogue):
+    """Return the lab's (kind, printer, material) pairings other than the part's own that the printer can print,
+    once each, least disruptive first: another material on the same printer, the same material on another
+    printer, then both changed (which changes the optics too)."""
+    out, seen = [], {(printer.slug, material.slug)}
+    for other_printer, other_material in catalogue:
+        key = (other_printer.slug, other_material.slug)
+        if key in seen:
+            continue
+        try:
+            check_pairing(other_printer, other_material)
+        except UnusableInput:
+            continue
+        seen.add(key)
+        kind = ("material" if other_printer.slug == printer.slug else
+                "printer" if other_material.slug == material.slug else "printer_and_material")
+        out.append((kind, other_printer, other_material))
+    return sorted(out, key=lambda c: KINDS.index(c[0]))
+
+
+def change_sentence(kind: str, printer, material, orientation: str | None = None, factor: float | None = None,
+                    freq_ghz: float | None = None) -> str:
+    """Return the change tried, in words: "print it on Bay 3 laser resin printer in the same material"."""
+    if kind == "scale":
+        # A dielectric part scaled by s behaves at f / s as it did at f (Maxwell's equations scale; dispersion aside).
+        design = f", the same design for {freq_ghz / factor:.4g} GHz instead of {freq_ghz:g} GHz" if freq_ghz else ""
+        return f"scale the whole part by {factor:.2f}{design}"
+    if kind == "orientation":
+        return f"build it along {orientation} on the same printer"
+    if kind == "material":
+        return f"print it in {material.name} on the same printer"
+    if kind == "printer":
+        return f"print it on {printer.name} in the same material"
+    return f"print it on {printer.name} in {material.name}"
+
+
+def _one_material_per_printer(candidates):
+    """Keep one material per other printer (the design rules depend on the printer, not the material)."""
+    kept, seen = [], set()
+    for kind, printer, material, orientation in candidates:
+        key = (printer.slug, orientation)
+        if kind == "printer_and_material" and key in seen:
+            continue
+        seen.add(key)
+        kept.append((kind, printer, material, orientation))
+    return kept
+
+
+def lost_features(stack, blockers: Sequence[Finding]) -> list[Finding]:
+    """Return the located blockers whose place holds no solid in this stack: a coarser grid dropped the feature.
+
+    A printer whose pixel is wider than a thin fin does not print the fin at all; its rules then find nothing
+    there, which is not a fix. The blocker's location is looked for in a 3 x 3 pixel window of its layer.
+    """
+    lost = []
+    ox, oy, oz = stack.origin_mm
+    for f in blockers:
+        if f.location_mm is None:
+            continue
+        x, y, z = f.location_mm
+        k = int((z - oz) // stack.layer_height_mm)
+        r, c = int((y - oy) // stack.pixel_mm), int((x - ox) // stack.pixel_mm)
+        if not 0 <= k < stack.count:
+            lost.append(f)
+            continue
+        layer = stack.layer(k)
+        window = layer[max(r - 1, 0):r + 2, max(c - 1, 0):c + 2]
+        if window.size == 0 or not window.any():
+            lost.append(f)
+    return lost
+
+
+def _try(part, kind, printer, material, orientation, before, blockers, own_material, *, same_frame: bool,
+         factor: float | None = None) -> Alternative:
+    from services.estimate import estimate_print
+
+    oriented = layers.orient_part(part, orientation)
+    stack = layers.build_layer_stack(oriented, pixel_mm=printer.pixel_mm, layer_height_mm=printer.layer_height_mm)
+    fit, _ = check_build_fit(oriented, printer)
+    rules = run_rules(stack=stack, part=oriented, printer=printer)
+    # A feature the printer's grid drops is not fixed: its blocker stands (same orientation, same frame).
+    lost = lost_features(stack, blockers) if same_frame else []
+    found = [*fit, *rules.findings, *lost]
+    after = {f.rule for f in found if f.severity == "blocker"}
+    try:
+        support = rules.summary.get("overhang", {}).get("support_volume_mm3")
+        estimate = estimate_print(stack=stack, part=oriented, printer=printer, material=material,
+                                  quantities=(1,), support_volume_mm3=support).to_dict()
+    except UnusableInput:
+        estimate = {}
+    cost = estimate.get("cost") or {}
+    freq = (part.parameters or {}).get("freq_ghz")
+    change = change_sentence(kind, printer, material, orientation, factor=factor,
+                             freq_ghz=float(freq) if isinstance(freq, int | float) else None)
+    notes = []
+    if kind == "scale":
+        notes.append("a scaled optic works at another frequency: check the scaled design before printing")
+    if lost:
+        notes.append(f"its grid drops {len(lost)} feature{'s' if len(lost) != 1 else ''} the design has")
+    if material.slug != own_material.slug:
+        notes.append("a different material changes the optics: check the part again in it before printing")
+    note = "; ".join(notes) or None
+    return Alternative(change=change, kind=kind, printer=printer.slug, material=material.slug, orientation=orientation,
+                       blockers=sum(f.severity == "blocker" for f in found),
+                       cautions=sum(f.severity == "caution" for f in found),
+                       blockers_removed=tuple(sorted(before - after)), print_time_s=estimate.get("print_time_s"),
+                       cost_one=cost.get("total"), currency=cost.get("currency"), note=note,
+                       scale=factor if kind == "scale" else None)

@@ -1,0 +1,110 @@
+"""The clear aperture: the optical zone the beam is meant to cross, not the part's outer bounds.
+
+A mounting flange, a tab or a solid rim around a lens must not widen the illumination or the
+window of the optics: the aperture is, in order of preference, the diameter the user gives, the
+one the generator declares (``diameter_mm`` of a part built with a flange), the region detected
+from the part (where its thickness differs from that of its outer rim: a lens's curved face or a
+plate's cells), or else the whole outline.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from scipy.ndimage import binary_erosion, binary_fill_holes
+
+# A detected zone reaching this close to the outline is the outline (a lens without a flange,
+# whose rim only thins to the rim thickness within a layer or two of the edge).
+OUTLINE_SHARE = 0.97
+# A zone smaller than this share of the outline is a feature (a rib, a fin, a label), not the optic.
+MIN_ZONE_SHARE = 0.2
+ROUND_AREA_SHARE = 0.9  # a footprint filling less of its bounding box than this is round (a disc fills pi / 4)
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class ClearAperture:
+    """The clear aperture on the stack's pixels and how it was found.
+
+    mask : (ny, nx) bool on the layer stack's pixels
+    how : "given" | "generator" | "detected" | "outline"
+    rim_radius_mm : half the smaller side of its xy extent (a disc's radius, a square's half side)
+    """
+
+    mask: np.ndarray
+    how: str
+    note: str
+    rim_radius_mm: float
+    area_mm2: float
+    half_extent_mm: tuple[float, float]
+
+    def to_dict(self) -> dict:
+        return {"how": self.how, "note": self.note, "rim_radius_mm": round(self.rim_radius_mm, 4),
+                "area_mm2": round(self.area_mm2, 3)}
+
+
+def clear_aperture(stack, *, axis_mm: tuple[float, float], given_mm: float | None = None,
+                   parameters: dict | None = None) -> ClearAperture:
+    """Return the clear aperture: given, else the generator's, else detected, else the outline."""
+    outline = binary_fill_holes(stack.footprint)
+    if not outline.any():
+        return _aperture(stack, outline, "outline", "The part has no footprint.", axis_mm)
+    x, y = stack.x_centres_mm[None, :] - axis_mm[0], stack.y_centres_mm[:, None] - axis_mm[1]
+    radius = np.hypot(x, y)
+    if given_mm is not None:
+        return _aperture(stack, outline & (radius <= given_mm / 2), "given",
+                         f"The {given_mm:g} mm diameter given with the check, centred on the optical axis.", axis_mm)
+    declared = _declared_diameter_mm(parameters, stack, outline)
+    if declared is not None:
+        return _aperture(stack, outline & (radius <= declared / 2), "generator",
+                         f"The {declared:g} mm aperture diameter the generator built, inside its flange.", axis_mm)
+    zone = _varying(stack, outline)
+    if zone.any():
+        half = stack.pixel_mm / 2
+        if outline.sum() < ROUND_AREA_SHARE * _box_area(outline):
+            inside = radius <= radius[zone].max() + half
+        else:
+            inside = ((np.abs(x) <= np.abs(np.broadcast_to(x, zone.shape)[zone]).max() + half)
+                      & (np.abs(y) <= np.abs(np.broadcast_to(y, zone.shape)[zone]).max() + half))
+        mask = outline & inside
+        if MIN_ZONE_SHARE * outline.sum() <= mask.sum() < OUTLINE_SHARE * outline.sum():
+            return _aperture(stack, mask, "detected",
+                             "Detected: the region where the part's thickness differs from its outer rim's "
+                             "(a curved face or cells), inside a flat rim taken as a mount.", axis_mm)
+    return _aperture(stack, outline, "outline", "The part's whole outline (holes filled): no flat mounting rim "
+                                                "was found and no aperture was given.", axis_mm)
+
+
+def _declared_diameter_mm(parameters: dict | None, stack, outline: np.ndarray) -> float | None:
+    """Return a generated part's aperture diameter when it has a flange and lies flat as built."""
+    p = parameters or {}
+    if not p.get("flange_width_mm") or not p.get("diameter_mm"):
+        return None
+    rows, cols = np.nonzero(outline)
+    across = (min(np.ptp(rows), np.ptp(cols)) + 1) * stack.pixel_mm
+    width = float(p["diameter_mm"]) + 2 * float(p["flange_width_mm"])
+    # Built on its side the declared diameter is not in the xy plane: detect instead.
+    return float(p["diameter_mm"]) if abs(across - width) <= 0.05 * width else None
+
+
+def _varying(stack, outline: np.ndarray) -> np.ndarray:
+    """Return the pixels whose thickness differs by a layer or more from the outer rim's (its median)."""
+    edge = outline & ~binary_erosion(outline)
+    rim = float(np.median(stack.thickness_mm[edge]))
+    return outline & (np.abs(stack.thickness_mm - rim) > 0.5 * stack.layer_height_mm)
+
+
+def _box_area(mask: np.ndarray) -> float:
+    rows, cols = np.nonzero(mask)
+    return float((np.ptp(rows) + 1) * (np.ptp(cols) + 1))
+
+
+def _aperture(stack, mask: np.ndarray, how: str, note: str, axis_mm: tuple[float, float]) -> ClearAperture:
+    rows, cols = np.nonzero(mask)
+    if len(rows) == 0:
+        return ClearAperture(mask, how, note, 0.0, 0.0, (0.0, 0.0))
+    rim = min(np.ptp(rows) + 1, np.ptp(cols) + 1) * stack.pixel_mm / 2
+    half = stack.pixel_mm / 2
+    x, y = stack.x_centres_mm[cols] - axis_mm[0], stack.y_centres_mm[rows] - axis_mm[1]
+    return ClearAperture(mask, how, note, float(rim), float(mask.sum() * stack.pixel_mm**2),
+                         (float(np.abs(x).max() + half), float(np.abs(y).max() + half)))

@@ -1,0 +1,96 @@
+"""The part for the report page's 3D view: a decimated mesh, the as-printed layer outlines, numbered markers.
+
+The worker writes this once per check as JSON (typed arrays in base64) so the browser never reads the
+uploaded mesh: a 2-million-triangle part reaches the page as at most ``MAX_TRIANGLES`` triangles, and the
+layer stack as the outlines of its runs of identical layers (what the printer builds, terraces and all).
+"""
+
+from __future__ import annotations
+
+import base64
+import json
+
+import cv2
+import numpy as np
+
+from services.findings import Finding
+from services.pictures import cluster_vertices
+
+SCHEMA = "phasewright.part-view/1"
+MAX_TRIANGLES = 40_000
+MAX_OUTLINE_POINTS = 120_000
+
+
+def decimated_mesh(vertices_mm: np.ndarray, faces: np.ndarray, max_triangles: int = MAX_TRIANGLES
+                   ) -> tuple[np.ndarray, np.ndarray]:
+    """Return (float32 vertices, uint32 faces) with at most ``max_triangles`` faces, by vertex clustering."""
+    vertices, faces = cluster_vertices(vertices_mm, faces, max_triangles)
+    return vertices.astype(np.float32), faces.astype(np.uint32)
+
+
+def layer_outlines(stack, max_points: int = MAX_OUTLINE_POINTS) -> dict:
+    """Return the outlines of each run of identical layers in mm, thinned to every k-th run if they are many."""
+    ox, oy = stack.origin_mm[0], stack.origin_mm[1]
+    outlines = []
+    for first, last, mask in stack.runs():  # one raster at a time: a list of them all held 1.9 GB on a 2M-triangle lens
+        contours, _ = cv2.findContours(mask.view(np.uint8), cv2.RETR_LIST, cv2.CHAIN_APPROX_SIMPLE)
+        loops = []
+        for c in contours:
+            c = cv2.approxPolyDP(c, 0.75, True).reshape(-1, 2).astype(np.float64)
+            if len(c) >= 2:
+                # Pixel (col, row) -> mm at the pixel centre, as the stack's x/y centres.
+                xy = np.column_stack([ox + (c[:, 0] + 0.5) * stack.pixel_mm, oy + (c[:, 1] + 0.5) * stack.pixel_mm])
+                loops.append(xy.astype(np.float32))
+        outlines.append((first, last, loops))
+    total = sum(len(loop) for _, _, loops in outlines for loop in loops)
+    every = max(1, int(np.ceil(total / max_points))) if total else 1
+    shown = outlines[::every] if every > 1 else outlines
+    return {
+        "every": every,
+        "runs": [{"first": first, "last": last, "loops": [_b64(loop) for loop in loops]} for first, last, loops in shown],
+    }
+
+
+def view_markers(findings: list[Finding] | tuple[Finding, ...]) -> list[dict]:
+    """Return a marker per located spot, numbered by the findings' places in the report's list (from 1).
+
+    Findings within 0.5 mm of each other share one marker ("1, 2"), in the severity of the worst (the first).
+    """
+    spots: dict[tuple, dict] = {}
+    for i, f in enumerate(findings, start=1):
+        if f.location_mm is None:
+            continue
+        key = tuple(round(v * 2) for v in f.location_mm)
+        if key in spots:
+            spot = spots[key]
+            spot["numbers"].append(i)
+            if f.layers is not None:
+                low, high = spot["layers"] or f.layers
+                spot["layers"] = [min(low, f.layers[0]), max(high, f.layers[1])]
+            continue
+        spots[key] = {"number": i, "numbers": [i], "rule": f.rule, "severity": f.severity, "message": f.message,
+                      "location_mm": [round(float(v), 3) for v in f.location_mm],
+                      "layers": list(f.layers) if f.layers is not None else None}
+    return list(spots.values())
+
+
+def part_view_json(part, stack, findings) -> str:
+    """Return the 3D view's data for one checked part (its oriented mesh, layer stack and sorted findings)."""
+    vertices, faces = decimated_mesh(part.vertices_mm, part.faces)
+    lo = np.asarray(part.vertices_mm).min(axis=0)
+    hi = np.asarray(part.vertices_mm).max(axis=0)
+    view = {
+        "schema": SCHEMA,
+        "units": "mm",
+        "bounds_mm": [[round(float(v), 4) for v in lo], [round(float(v), 4) for v in hi]],
+        "mesh": {"positions": _b64(vertices), "indices": _b64(faces), "triangles": int(len(faces)),
+                 "source_triangles": int(len(part.faces))},
+        "layers": {"count": int(stack.count), "height_mm": float(stack.layer_height_mm),
+                   "z0_mm": float(stack.origin_mm[2]), "pixel_mm": float(stack.pixel_mm), **layer_outlines(stack)},
+        "markers": view_markers(findings),
+    }
+    return json.dumps(view, separators=(",", ":"))
+
+
+def _b64(array: np.ndarray) -> str:
+    return base64.b64encode(np.ascontiguousarray(array).tobytes()).decode("ascii")

@@ -1,0 +1,85 @@
+"""Widths across walls at any angle, and the windows that stay inside the array (services.rules.thin)."""
+
+import math
+
+import numpy as np
+import pytest
+
+from services.rules import raster, thin
+
+
+def band(width_px: float, angle_deg: float, n: int = 120, shift: float = 0.137) -> np.ndarray:
+    """Return a straight wall width_px wide and 80 px long turned by angle_deg, sampled at pixel centres."""
+    yy, xx = np.mgrid[0:n, 0:n] + 0.5
+    t, c = math.radians(angle_deg), n / 2 + shift
+    across = (xx - c) * math.cos(t) + (yy - c) * math.sin(t)
+    along = -(xx - c) * math.sin(t) + (yy - c) * math.cos(t)
+    return (np.abs(across) < width_px / 2) & (np.abs(along) < 40)
+
+
+def widths_in_the_middle(mask: np.ndarray, cap_px: int) -> np.ndarray:
+    """Return the width at every material pixel within 25 px of the middle (away from the wall's ends)."""
+    _, numbers = raster.nearest_void(mask)
+    yy, xx = np.mgrid[0:mask.shape[0], 0:mask.shape[1]]
+    rows, cols = np.nonzero(mask & (np.hypot(yy - 60, xx - 60) < 25))
+    near = raster.void_index(mask, numbers[rows, cols])
+    return thin.widths_across(mask, rows, cols, near, cap_px)
+
+
+@pytest.mark.parametrize("width_px", [4.0, 6.0, 9.0])
+@pytest.mark.parametrize("angle_deg", [0.0, 7.0, 25.0, 30.0, 45.0, 60.0, 83.0])
+def test_a_wall_at_the_limit_reads_its_drawn_width_within_half_a_pixel_at_any_angle(width_px, angle_deg):
+    """Every pixel of a wall drawn at the limit reads no less than half a pixel under it (by construction).
+
+    Widths over the limit (``cap_px``) come back as cap_px + 1, so the reading is at most that.
+    """
+    widths = widths_in_the_middle(band(width_px, angle_deg), cap_px=int(width_px))
+    assert widths.size > 100
+    assert widths.min() >= width_px - 0.5 and widths.max() <= width_px + 1
+    assert abs(np.median(widths) - width_px) <= 0.36  # at 45 deg pixel centres lie on lines 0.707 px apart
+
+
+@pytest.mark.parametrize("angle_deg", [0.0, 25.0, 45.0, 60.0])
+def test_at_the_limit_passes_and_a_pixel_under_is_flagged_everywhere(angle_deg):
+    """The rules' convention: widths rounded to whole pixels, under the whole-pixel limit to count."""
+    assert not thin.is_under(widths_in_the_middle(band(6.0, angle_deg), 6), 6).any()
+    assert thin.is_under(widths_in_the_middle(band(5.0, angle_deg), 6), 6).all()
+
+
+@pytest.mark.parametrize("angle_deg", [0.0, 10.0, 25.0, 60.0, 90.0])
+def test_edge_normals_follow_a_turned_edge(angle_deg):
+    """The smoothed gradient at the void pixels along a straight edge points across it: within 15 deg, 9 on average."""
+    mask = band(40.0, angle_deg)
+    rows, cols = np.nonzero(~mask & (np.hypot(*(np.mgrid[0:120, 0:120] - 60)) < 30))
+    touching = np.array([mask[max(r - 1, 0):r + 2, max(c - 1, 0):c + 2].any() for r, c in zip(rows, cols)])
+    uy, ux = thin.edge_normals(mask, rows[touching], cols[touching])
+    t = math.radians(angle_deg)
+    cosine = np.abs(uy * math.sin(t) + ux * math.cos(t))  # the wall's normal is (cos t, sin t) in (x, y)
+    error_deg = np.degrees(np.arccos(np.clip(cosine, 0.0, 1.0)))
+    assert cosine.size > 20 and error_deg.max() <= 15.0 and error_deg.mean() <= 9.0
+
+
+def test_windows_at_the_array_edge_are_cut_back_never_empty():
+    """A window reaching past any edge keeps what is inside (issue 14's empty reduction at an edge)."""
+    assert thin.clamp_box((10, 8), 0, 0, 2, 3) == (0, 4, 0, 4)
+    assert thin.clamp_box((10, 8), 9, 7, 2, 3) == (7, 10, 5, 8)
+    assert thin.clamp_box((10, 8), -1, -1, 2, 3) == (0, 3, 0, 3)
+    assert thin.clamp_box((10, 8), 20, 20, 2, 3) == (9, 10, 7, 8)
+
+
+def test_first_pixel_of_each_label():
+    labels = np.array([[0, 2, 2], [1, 0, 2], [1, 3, 0]])
+    assert raster.first_pixel(labels, np.array([1, 2, 3])).tolist() == [3, 1, 7]
+
+
+@pytest.mark.parametrize("width", [1, 2, 3, 4, 7, 8])
+def test_a_square_wall_reads_its_pixel_count_at_every_pixel(width):
+    """Square to the grid, every pixel of a wall reads its pixel count, odd or even (by construction)."""
+    mask = np.zeros((40, 40), bool)
+    mask[5:35, 10:10 + width] = True
+    rows, cols = raster.coords(mask[10:30])
+    rows = rows + 10
+    _, numbers = raster.nearest_void(mask)
+    near = raster.void_index(mask, numbers[rows, cols])
+    assert np.all(np.abs(thin.widths_across(mask, rows, cols, near, 20) - width) <= 1e-6)
+    assert np.all(np.abs(thin.widths_across(mask, rows, cols, near, width) - width) <= 0.05)  # refined at the limit

@@ -1,0 +1,102 @@
+"""What must change: changes tried on the part, each with the numbers it gives."""
+
+import pytest
+import trimesh
+
+from services import catalogue, layers
+from services.alternatives import lost_features, scaled_part, what_must_change
+from services.findings import Finding
+from services.rules import run_rules
+from services.settings import CheckSettings
+
+PRINTERS = {p.slug: p for p in catalogue.printers()}
+MATERIALS = {m.slug: m for m in catalogue.materials()}
+
+
+def _finned(make_part):
+    """A 10 x 10 x 1 mm plate with a 0.1 mm fin 2 mm tall: below the LCD resin printer's 0.15 mm minimum."""
+    plate = trimesh.creation.box(extents=(10, 10, 1))
+    plate.apply_translation((0, 0, 0.5))
+    fin = trimesh.creation.box(extents=(0.1, 6, 2))
+    fin.apply_translation((0, 0, 1.99))
+    return make_part(trimesh.boolean.union([plate, fin], engine="manifold"), name="finned.stl")
+
+
+def _blockers(part, printer, orientation="+z"):
+    oriented = layers.orient_part(part, orientation)
+    stack = layers.build_layer_stack(oriented, pixel_mm=printer.pixel_mm, layer_height_mm=printer.layer_height_mm)
+    return [f for f in run_rules(stack=stack, part=oriented, printer=printer).findings if f.severity == "blocker"]
+
+
+def test_each_suggestion_is_what_the_rules_find_when_the_change_is_made(make_part):
+    """Every suggested change, made by hand and checked again, gives the blocker count the suggestion states,
+    and removes a blocker the part had."""
+    part = _finned(make_part)
+    printer, material = PRINTERS["bay1-lcd-resin"], MATERIALS["standard-resin"]
+    blockers = _blockers(part, printer)
+    assert {f.rule for f in blockers} >= {"min_feature"}
+    pairs = [(p, m) for p in catalogue.printers() for m in catalogue.materials()]
+    found = what_must_change(part=part, printer=printer, material=material, settings=CheckSettings(),
+                             findings=blockers, catalogue=pairs)
+    assert 1 <= len(found) <= 3
+    for alt in found:
+        assert alt.blockers_removed and alt.blockers <= len(blockers) + 2
+        made = scaled_part(part, alt.scale) if alt.kind == "scale" else part
+        again = _blockers(made, PRINTERS[alt.printer], alt.orientation)
+        lost = lost_features(layers.build_layer_stack(layers.orient_part(part, alt.orientation),
+                                                      pixel_mm=PRINTERS[alt.printer].pixel_mm,
+                                                      layer_height_mm=PRINTERS[alt.printer].layer_height_mm),
+                             blockers) if alt.orientation == "+z" and alt.kind != "scale" else []
+        assert alt.blockers == len(again) + len(lost)
+        if alt.material != material.slug:
+            assert "changes the optics" in alt.note
+
+
+def test_nothing_is_tried_without_blockers_or_for_a_broken_mesh(make_part):
+    part = _finned(make_part)
+    printer, material = PRINTERS["bay1-lcd-resin"], MATERIALS["standard-resin"]
+    caution = [Finding("min_gap", "caution", "a gap")]
+    assert what_must_change(part=part, printer=printer, material=material, settings=CheckSettings(),
+                            findings=caution) == []
+    broken = [Finding("mesh_health", "blocker", "open edges"), Finding("min_feature", "blocker", "thin")]
+    assert what_must_change(part=part, printer=printer, material=material, settings=CheckSettings(),
+                            findings=broken) == []
+
+
+def test_a_feature_a_coarse_grid_drops_is_not_a_fix(make_part):
+    """A 0.1 mm fin sliced at a 0.5 mm pixel leaves nothing where the fin was: its blocker is reported as lost,
+    not removed."""
+    part = _finned(make_part)
+    oriented = layers.orient_part(part, "+z")
+    coarse = layers.build_layer_stack(oriented, pixel_mm=0.5, layer_height_mm=0.2)
+    fine = layers.build_layer_stack(oriented, pixel_mm=0.05, layer_height_mm=0.05)
+    fin = Finding("min_feature", "blocker", "thin fin", location_mm=(0.0, 0.0, 2.0))
+    assert lost_features(coarse, [fin]) == [fin] and lost_features(fine, [fin]) == []
+
+
+def test_a_fin_too_thin_is_cleared_by_the_smallest_uniform_scale(make_part):
+    """The 0.1 mm fin against a 0.15 mm limit: scaled by 0.15 / 0.1 (2 % over, to the hundredth: 1.53) the part
+    prints without that blocker; the volume grows by the cube of the scale (by construction)."""
+    part = _finned(make_part)
+    printer, material = PRINTERS["bay1-lcd-resin"], MATERIALS["standard-resin"]
+    blockers = [f for f in _blockers(part, printer) if f.rule == "min_feature"]
+    found = what_must_change(part=part, printer=printer, material=material, settings=CheckSettings(),
+                             findings=blockers)
+    [scale] = [a for a in found if a.kind == "scale"]
+    expected = max(f.limit / f.measured for f in blockers) * 1.02
+    assert scale.scale == pytest.approx(expected, abs=0.011) and scale.scale >= expected
+    assert "min_feature" in scale.blockers_removed and "scale the whole part by" in scale.change
+    assert "another frequency" in scale.note
+    grown = scaled_part(part, scale.scale)
+    assert grown.volume_mm3 == pytest.approx(part.volume_mm3 * scale.scale ** 3)
+    assert not [f for f in _blockers(grown, printer) if f.rule == "min_feature"]
+
+
+def test_a_generated_parts_scale_names_the_frequency_it_is_then_designed_for():
+    """A dielectric part scaled by s does at f / s what it did at f (scale invariance of Maxwell's equations for a
+    non-dispersive material; Joannopoulos et al., Photonic Crystals, ch. 2, from memory)."""
+    from services.alternatives import change_sentence
+
+    printer, material = PRINTERS["bay1-lcd-resin"], MATERIALS["standard-resin"]
+    words = change_sentence("scale", printer, material, factor=1.25, freq_ghz=300.0)
+    assert words == "scale the whole part by 1.25, the same design for 240 GHz instead of 300 GHz"

@@ -1,0 +1,66 @@
+"""The 3D view's data: decimation keeps the shape, outlines sit on the layers, markers follow the report's numbers."""
+
+import base64
+import json
+import math
+
+import numpy as np
+import trimesh
+
+from services.findings import Finding
+from services.layers import build_layer_stack
+from services.part_view import MAX_TRIANGLES, decimated_mesh, layer_outlines, part_view_json
+
+
+def _decode(text, dtype):
+    return np.frombuffer(base64.b64decode(text), dtype=dtype)
+
+
+def test_decimation_keeps_a_spheres_area_and_volume():
+    """A 327,680-triangle sphere drawn with at most 40,000 triangles keeps 4 pi r^2 and 4/3 pi r^3 within 1 %
+    (analytic sphere; the decimated mesh is a closed shell again)."""
+    sphere = trimesh.creation.icosphere(subdivisions=7, radius=20.0)
+    vertices, faces = decimated_mesh(sphere.vertices, sphere.faces)
+    assert len(faces) <= MAX_TRIANGLES and len(faces) > MAX_TRIANGLES // 4
+    mesh = trimesh.Trimesh(vertices, faces, process=False)
+    assert abs(mesh.area / (4 * math.pi * 20.0 ** 2) - 1) < 0.01
+    assert abs(mesh.volume / (4 / 3 * math.pi * 20.0 ** 3) - 1) < 0.01
+
+
+def test_a_small_mesh_is_sent_as_it_is():
+    box = trimesh.creation.box(extents=(3, 4, 5))
+    vertices, faces = decimated_mesh(box.vertices, box.faces)
+    assert np.array_equal(faces, box.faces) and np.allclose(vertices, box.vertices)
+
+
+def test_outlines_of_a_box_trace_its_footprint_on_its_layers(make_part):
+    """A 10 x 6 x 2 mm box at 0.05 mm pixels and 0.1 mm layers: one run of 20 identical layers, one loop whose
+    corners are the box's within one pixel."""
+    box = trimesh.creation.box(extents=(10, 6, 2))
+    box.apply_translation((5, 3, 1))
+    stack = build_layer_stack(make_part(box), pixel_mm=0.05, layer_height_mm=0.1)
+    outlines = layer_outlines(stack)
+    assert outlines["every"] == 1 and len(outlines["runs"]) == 1
+    run = outlines["runs"][0]
+    assert (run["first"], run["last"]) == (0, 19) and len(run["loops"]) == 1
+    xy = _decode(run["loops"][0], np.float32).reshape(-1, 2)
+    assert np.allclose(xy.min(axis=0), (0, 0), atol=0.05) and np.allclose(xy.max(axis=0), (10, 6), atol=0.05)
+
+
+def test_markers_carry_the_report_numbers_and_skip_unlocated_findings(make_part):
+    box = trimesh.creation.box(extents=(4, 4, 1))
+    box.apply_translation((2, 2, 0.5))
+    part = make_part(box)
+    stack = build_layer_stack(part, pixel_mm=0.1, layer_height_mm=0.1)
+    findings = [Finding("min_feature", "blocker", "a fin is too thin", location_mm=(1.0, 2.0, 0.5), layers=(3, 7)),
+                Finding("overhang", "note", "no location"),
+                Finding("island", "caution", "an island", location_mm=(3.0, 3.0, 0.9), layers=(8, 8)),
+                Finding("min_gap", "caution", "a gap beside the fin", location_mm=(1.1, 2.1, 0.5), layers=(2, 5))]
+    view = json.loads(part_view_json(part, stack, findings))
+    assert view["schema"] == "phasewright.part-view/1"
+    # Findings 1 and 4 lie within 0.5 mm: one marker "1, 4" in the worst severity, spanning both layer ranges.
+    assert [(m["numbers"], m["severity"], m["layers"]) for m in view["markers"]] == [([1, 4], "blocker", [2, 7]),
+                                                                                   ([3], "caution", [8, 8])]
+    assert view["layers"]["count"] == 10 and view["mesh"]["triangles"] == 12
+    positions = _decode(view["mesh"]["positions"], np.float32).reshape(-1, 3)
+    assert np.allclose(positions.min(axis=0), (0, 0, 0)) and np.allclose(positions.max(axis=0), (4, 4, 1))
