@@ -11,7 +11,7 @@ import numpy as np
 from lxml import etree
 
 from services.intake.common import IntakeLimits, _refuse, _shown
-from services.intake.threemf_model import XML_OPTIONS, ComponentLimits, read_model
+from services.intake.threemf_model import MALFORMED_XML, XML_OPTIONS, ComponentLimits, read_model
 from services.intake.units import _3MF_UNITS
 from services.part import Part
 from services.sizes import over_limit_text
@@ -143,8 +143,7 @@ def _model_unit(zf: zipfile.ZipFile, info: zipfile.ZipInfo, *, name: str) -> str
         with zf.open(info) as fh:
             _, root = next(etree.iterparse(fh, events=("start",), **XML_OPTIONS))
     except (etree.XMLSyntaxError, StopIteration) as exc:
-        raise _refuse("xml_malformed", name, "the 3MF model is not well-formed XML; export the part "
-                      "again.") from exc
+        raise _refuse("xml_malformed", name, MALFORMED_XML) from exc
     if etree.QName(root).localname != "model":
         raise _refuse("xml_malformed", name, "the 3MF model part does not start with a <model> element; export "
                       "the part again.")

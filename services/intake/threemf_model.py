@@ -22,6 +22,10 @@ from services.errors import UnusableInput
 
 # The same lxml options trimesh uses for 3MF: no entities, no DTD, no network, no huge trees.
 XML_OPTIONS = {"resolve_entities": False, "no_network": True, "load_dtd": False, "huge_tree": False}
+# One sentence wherever the parser gives up: which read meets the depth limit first (the unit probe or the
+# model reader) depends on the libxml2 build's buffering, and the user needs the same answer either way.
+MALFORMED_XML = ("the 3MF model is not well-formed XML (or nests deeper than an XML parser allows); export the part "
+                 "again.")
 _PATH_ATTR = "{http://schemas.microsoft.com/3dmanufacturing/production/2015/06}path"
 
 
@@ -143,8 +147,7 @@ def read_model(stream, *, name: str, limits: ComponentLimits = ComponentLimits()
                 while el.getprevious() is not None:  # drop read siblings: memory stays flat
                     del el.getparent()[0]
     except etree.XMLSyntaxError as exc:
-        raise _refuse("xml_malformed", name, "the 3MF model is not well-formed XML (or nests deeper than an XML "
-                      "parser allows); export the part again.") from exc
+        raise _refuse("xml_malformed", name, MALFORMED_XML) from exc
     except (TypeError, ValueError) as exc:
         raise _refuse("xml_malformed", name, "a 3MF vertex or triangle lacks a number where one belongs; export "
                       "the part again.") from exc
