@@ -4,6 +4,7 @@
 
 Parts (all rest on z = 0, axis along +z):
   zoned_lens_60mm      60 mm zoned collimating lens for 140 GHz (n = 1.65, f = 72 mm), 2 mm base
+  zoned_lens_100mm     the same recipe 100 mm across (more, narrower zones; 400 segments round)
   pillar_plate_30mm    30 mm plate, 1 mm thick, ~3,000 pillars (32 segments) graded in radius and height
   smooth_lens_2m       60 mm hyperbolic plano-convex lens revolved finely to ~2M triangles
   pillar_plate_30mm_seg16 / _seg64   the pillar plate with 16 / 64 segments (triangle scaling)
@@ -49,24 +50,24 @@ def hyperbolic_sag_mm(r_mm: np.ndarray) -> np.ndarray:
     return (-b + np.sqrt(b * b + 4 * a * r_mm**2)) / (2 * a)
 
 
-def zone_radii_mm(depth_mm: float) -> np.ndarray:
+def zone_radii_mm(depth_mm: float, radius_mm: float = LENS_RADIUS_MM) -> np.ndarray:
     """Return the radii where the sag reaches a multiple of the zone depth (the zone steps)."""
     a, b = N_LENS**2 - 1, 2 * FOCAL_MM * (N_LENS - 1)
-    steps = np.arange(1, int(hyperbolic_sag_mm(np.array(LENS_RADIUS_MM)) // depth_mm) + 1) * depth_mm
+    steps = np.arange(1, int(hyperbolic_sag_mm(np.array(radius_mm)) // depth_mm) + 1) * depth_mm
     return np.sqrt(a * steps**2 + b * steps)
 
 
-def zoned_lens(points_per_zone: int = 120, segments: int = 256) -> Manifold:
+def zoned_lens(points_per_zone: int = 120, segments: int = 256, radius_mm: float = LENS_RADIUS_MM) -> Manifold:
     """Return the zoned lens: thickness base + depth - (sag mod depth), depth = lambda / (n - 1)."""
     depth = C_MM_GHZ / FREQ_GHZ / (N_LENS - 1)
-    edges = np.concatenate([[0.0], zone_radii_mm(depth), [LENS_RADIUS_MM]])
+    edges = np.concatenate([[0.0], zone_radii_mm(depth, radius_mm), [radius_mm]])
     top = []
     for outer, inner in zip(edges[:0:-1], edges[-2::-1]):  # outside in, one zone at a time
         r = np.linspace(outer, inner, points_per_zone)
         sag = hyperbolic_sag_mm(r)
         k = np.floor(hyperbolic_sag_mm(np.array((outer + inner) / 2)) / depth)
         top += list(zip(r, BASE_MM + depth - (sag - k * depth)))
-    outline = [(0.0, 0.0), (LENS_RADIUS_MM, 0.0)] + top
+    outline = [(0.0, 0.0), (radius_mm, 0.0)] + top
     return checked(CrossSection([np.array(outline)]).revolve(segments))
 
 
@@ -111,6 +112,7 @@ def write_stl(manifold: Manifold, path: Path) -> None:
 
 BUILDERS = {
     "zoned_lens_60mm": zoned_lens,
+    "zoned_lens_100mm": lambda: zoned_lens(segments=400, radius_mm=50.0),
     "pillar_plate_30mm": pillar_plate,
     "smooth_lens_2m": smooth_lens,
     "pillar_plate_30mm_seg16": lambda: pillar_plate(segments=16),

@@ -72,6 +72,7 @@ class RuleCollector:
 
     rule = ""
     pad_px = 2
+    reach_px = 0  # how far past a run's material this family looks (RunView.window grows by at least this)
 
     def __init__(self, *, stack, part, printer) -> None:
         limits = printer.rule(self.rule)

@@ -149,13 +149,15 @@ def thin_parts(view: RunView, n_sup: int | None, n_uns: int | None):
     none = np.zeros(0, np.int64)
     if n_sup is None:
         return free_lut, none, none, np.zeros(0), np.zeros(0)
-    opened = raster.open_disk(view.mask, n_sup)
-    rows, cols = raster.coords(view.mask & ~opened)
+    rs, cs = view.window  # open air beyond it: the opening there is empty
+    mask = view.mask[rs, cs]
+    opened = raster.open_disk(mask, n_sup)
+    rows, cols = raster.coords(mask & ~opened)
+    keep = ~_next_to(opened, rows, cols)  # one pixel of staircase tolerance
+    rows, cols = rows[keep] + rs.start, cols[keep] + cs.start
     if free_lut is not None:
         keep = ~free_lut[labels[rows, cols]]
         rows, cols = rows[keep], cols[keep]
-    keep = ~_next_to(opened, rows, cols)  # one pixel of staircase tolerance
-    rows, cols = rows[keep], cols[keep]
     if rows.size == 0:
         return free_lut, none, none, np.zeros(0), np.zeros(0)
     width, depth = _ray(view.mask, rows, cols, n_sup)

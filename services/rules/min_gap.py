@@ -46,6 +46,7 @@ class Collector(RuleCollector):
         if not ok:
             return False
         self.n_xy = raster.limit_px(self.xy_mm, stack.pixel_mm) if self.xy_mm else None
+        self.reach_px = 2 * self.n_xy + 4 if self.n_xy else 0
         self.hole_px2 = _hole_area_px(printer, stack.pixel_mm)
         self.needs = ("bounded",) if self.z_mm else ()
         self.groups = Groups("min")
@@ -122,7 +123,8 @@ class Collector(RuleCollector):
 
 def narrow_void(view: RunView, n_px: int, hole_px2: float | None):
     """Return rows, cols, width px and depth px (distance to material) of the narrow void of one run."""
-    void = ~view.mask
+    rs, cs = view.window  # reaches 2 n + 4 past the material (reach_px): narrow void lies well inside it
+    void = ~view.mask[rs, cs]
     opened = raster.open_disk(void, n_px, outside=True)
     rows, cols = raster.coords(void & ~opened)
     keep = ~_next_to(opened, rows, cols)  # one pixel of staircase tolerance
@@ -130,7 +132,7 @@ def narrow_void(view: RunView, n_px: int, hole_px2: float | None):
         count, labels, outside = view.void
         small = ~outside & (view.void_area < hole_px2)
         small[0] = False
-        keep &= ~small[labels[rows, cols]]  # holes min_hole judges by their diameter
+        keep &= ~small[labels[rows + rs.start, cols + cs.start]]  # holes min_hole judges by their diameter
     rows, cols = rows[keep], cols[keep]
     if rows.size == 0:
         return rows, cols, np.zeros(0), np.zeros(0)
@@ -141,7 +143,8 @@ def narrow_void(view: RunView, n_px: int, hole_px2: float | None):
     near = raster.void_index(crop, numbers[rows - r0, cols - c0])
     width = thin.widths_across(crop, rows - r0, cols - c0, near, n_px)
     narrow = thin.is_under(width, n_px)
-    return rows[narrow], cols[narrow], width[narrow], depth[rows[narrow] - r0, cols[narrow] - c0]
+    rows, cols = rows[narrow], cols[narrow]
+    return rows + rs.start, cols + cs.start, width[narrow], depth[rows - r0, cols - c0]
 
 
 def _hole_area_px(printer, pixel_mm: float) -> float | None:

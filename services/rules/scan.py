@@ -41,6 +41,7 @@ def _run(stack, part, printer, families: dict[str, Callable], progress=None) -> 
     collectors = {name: make(stack=stack, part=part, printer=printer) for name, make in families.items()}
     active = [c for c in collectors.values() if c.active]
     frame = Frame(stack, max([2] + [c.pad_px for c in active]))
+    frame.reach = max([frame.pad] + [c.reach_px for c in active])
     wants = {want for c in active for want in getattr(c, "needs", ())}
     below = BelowTop(frame) if wants else None
     frame.bounded = Bounded(frame) if "bounded" in wants else None
@@ -71,6 +72,7 @@ class Frame:
         self.ny, self.nx = stack.shape[0] + 2 * self.pad, stack.shape[1] + 2 * self.pad
         self.px = stack.pixel_mm
         self.dz = stack.layer_height_mm
+        self.reach = self.pad  # a run's window reaches this far past its material (see RunView.window)
         self.bounded: Bounded | None = None  # roofed voids, when a family asks for them
 
     def pad_mask(self, mask: np.ndarray) -> np.ndarray:
@@ -105,7 +107,8 @@ class BelowTop:
         self.top_mm = np.full((frame.ny, frame.nx), -1.0, np.float32)
 
     def update(self, view: RunView) -> None:
-        np.copyto(self.top_mm, np.float32(view.z_hi), where=view.mask)
+        rs, cs = view.window
+        np.copyto(self.top_mm[rs, cs], np.float32(view.z_hi), where=view.mask[rs, cs])
 
 
 class Bounded:
@@ -123,13 +126,15 @@ class Bounded:
     def update(self, view: RunView, below: BelowTop) -> None:
         if view.prev is None:
             return
-        roof = view.new & (below.top_mm >= 0)
+        rs, cs = view.window
+        roof = view.new[rs, cs] & (below.top_mm[rs, cs] >= 0)
         if not roof.any():
             return
-        base = below.top_mm[roof]
+        base = below.top_mm[rs, cs][roof]
         gap = np.float32(view.z_lo) - base
-        better = gap < self.height_mm[roof]
         rows, cols = np.nonzero(roof)
+        rows, cols = rows + rs.start, cols + cs.start
+        better = gap < self.height_mm[rows, cols]
         self.height_mm[rows[better], cols[better]] = gap[better]
         self.base_mm[rows[better], cols[better]] = base[better]
 
@@ -150,7 +155,12 @@ class Bounded:
 
 
 class RunView:
-    """One run of identical layers on the frame, with what the rules ask of it, each computed once."""
+    """One run of identical layers on the frame, with what the rules ask of it, each computed once.
+
+    The labellings, distance maps and morphology run in the run's ``window`` (its material's box grown
+    by the frame's reach): outside it every pixel is open air, so the results are the frame's, at the
+    cost of the material's box rather than the whole build plate's.
+    """
 
     def __init__(self, frame: Frame, index: int, first: int, last: int, mask: np.ndarray,
                  prev: RunView | None, below: BelowTop | None) -> None:
@@ -171,13 +181,45 @@ class RunView:
         self.prev = None
 
     @cached_property
+    def window(self) -> tuple[slice, slice]:
+        """Return the rows and columns of the frame that hold this run's material, grown by the reach.
+
+        Both start on an even index, so every second row and column of the window are the frame's.
+        Outside the window the frame holds open air only.
+        """
+        ny, nx = self.mask.shape
+        box = raster.bbox(self.mask)
+        if box is None:
+            return slice(0, ny), slice(0, nx)
+        reach = self.frame.reach
+        r0, c0 = max(box[0] - reach, 0) & ~1, max(box[2] - reach, 0) & ~1
+        return slice(r0, min(box[1] + reach, ny)), slice(c0, min(box[3] + reach, nx))
+
+    def frame_flat(self, flat: np.ndarray, width: int, step: int = 1) -> np.ndarray:
+        """Return frame flat indices of flat indices into the window (every ``step``-th pixel); -1 stays."""
+        rs, cs = self.window
+        rows, cols = np.divmod(np.maximum(flat, 0), width)
+        return np.where(flat >= 0, (rs.start + step * rows) * self.mask.shape[1] + cs.start + step * cols, -1)
+
+    def _framed(self, inner: np.ndarray, fill=0) -> np.ndarray:
+        """Return a frame-sized array holding ``inner`` in the window and ``fill`` elsewhere."""
+        out = np.full(self.mask.shape, fill, inner.dtype) if fill else np.zeros(self.mask.shape, inner.dtype)
+        out[self.window] = inner
+        return out
+
+    @cached_property
+    def _solid_in_window(self) -> tuple[int, np.ndarray]:
+        return raster.label(self.filled[self.window], 8)
+
+    @cached_property
     def solid(self) -> tuple[int, np.ndarray]:
         """Return (count, labels) of the layer's sections, 8-connected: material with its holes filled.
 
         A tube or a hollow box is one section as wide as its outline, so its walls count as walls,
         not as free-standing fins (a part standing inside another's cavity joins that section).
         """
-        return raster.label(self.filled, 8)
+        count, labels = self._solid_in_window
+        return count, self._framed(labels)
 
     @cached_property
     def filled(self) -> np.ndarray:
@@ -185,9 +227,13 @@ class RunView:
         return self.mask | self.enclosed
 
     @cached_property
+    def _dist_in_window(self) -> np.ndarray:
+        return cv2.distanceTransform(self.filled[self.window].view(np.uint8), cv2.DIST_L2, 5)
+
+    @cached_property
     def dist(self) -> np.ndarray:
         """Return each pixel's distance (px) to the nearest open-air pixel centre (holes filled)."""
-        return cv2.distanceTransform(self.filled.view(np.uint8), cv2.DIST_L2, 5)
+        return self._framed(self._dist_in_window)
 
     @cached_property
     def widths(self) -> tuple[np.ndarray, np.ndarray]:
@@ -197,16 +243,15 @@ class RunView:
         4 d - 1 (d in half-grid pixels), within about two pixels. Sections too small to be sampled get
         1.5 px. ``exact_widths`` and ``refine_width`` give more where it matters.
         """
-        count, labels = self.solid
-        half = np.ascontiguousarray(self.filled[::2, ::2])
+        count, labels = self._solid_in_window
+        half = np.ascontiguousarray(self.filled[self.window][::2, ::2])
         dist = cv2.distanceTransform(half.view(np.uint8), cv2.DIST_L2, 5)
         sub = labels[::2, ::2]
         deep, at = raster.per_label_max(dist, sub, count, raster.ridge(dist, half))
-        rows, cols = np.divmod(np.maximum(at, 0), half.shape[1])
-        at = np.where(at >= 0, 2 * rows * self.mask.shape[1] + 2 * cols, -1)
+        at = self.frame_flat(at, half.shape[1], step=2)
         unsampled = np.flatnonzero(at[1:] < 0) + 1
         if unsampled.size:  # sections under two pixels across: point at one of their own pixels
-            at[unsampled] = raster.first_pixel(labels, unsampled)
+            at[unsampled] = self.frame_flat(raster.first_pixel(labels, unsampled), labels.shape[1])
         width = np.where(np.isfinite(deep), 4 * deep - 1, 1.5)
         width[0] = 0.0
         return width, at
@@ -219,8 +264,10 @@ class RunView:
         centre: exact for a wall an odd number of pixels wide, one pixel low for an even one
         (``refine_width`` settles those that matter).
         """
-        count, labels = self.solid
-        deep, at = raster.per_label_max(self.dist, labels, count, raster.ridge(self.dist, self.filled))
+        count, labels = self._solid_in_window
+        dist = self._dist_in_window
+        deep, at = raster.per_label_max(dist, labels, count, raster.ridge(dist, self.filled[self.window]))
+        at = self.frame_flat(at, dist.shape[1])
         width = np.where(np.isfinite(deep), 2 * deep - 1, 0.0)
         width[0] = 0.0
         return width, at
@@ -234,7 +281,11 @@ class RunView:
         """
         if self.prev is None:
             return np.zeros((0, 2), np.int64)
-        return raster.overlap_pairs(self.prev.solid[1], self.solid[1], step=2)
+        (a, b), (c, d) = self.window, self.prev.window  # both start even: the sampling stays the frame's
+        rs, cs = slice(max(a.start, c.start), min(a.stop, c.stop)), slice(max(b.start, d.start), min(b.stop, d.stop))
+        if rs.start >= rs.stop or cs.start >= cs.stop:
+            return np.zeros((0, 2), np.int64)
+        return raster.overlap_pairs(self.prev.solid[1][rs, cs], self.solid[1][rs, cs], step=2)
 
     @cached_property
     def new(self) -> np.ndarray:
@@ -242,23 +293,28 @@ class RunView:
         return self.mask & ~self.prev.mask if self.prev is not None else self.mask.copy()
 
     @cached_property
+    def _void_in_window(self) -> tuple[int, np.ndarray]:
+        return raster.label(~self.mask[self.window], 4)
+
+    @cached_property
     def void(self) -> tuple[int, np.ndarray, np.ndarray]:
         """Return (count, labels, outside) of the void, 4-connected; outside[l] marks the open air.
 
-        The frame's margin is void all round, so the open air is the one label at its corner.
+        The window's rim is void all round, so the open air is the one label at its corner (and every
+        pixel outside the window).
         """
-        count, labels = raster.label(~self.mask, 4)
+        count, labels = self._void_in_window
         outside = np.zeros(count, bool)
         outside[labels[0, 0]] = True
-        return count, labels, outside
+        return count, self._framed(labels, fill=labels[0, 0]), outside
 
     @cached_property
     def enclosed(self) -> np.ndarray:
         """Return the void pixels enclosed by solid in this layer (holes, cavities, grooves)."""
-        count, labels, _ = self.void
+        count, labels = self._void_in_window
         if count <= 2:
             return np.zeros_like(self.mask)
-        return (labels != labels[0, 0]) & ~self.mask
+        return self._framed((labels != labels[0, 0]) & ~self.mask[self.window])
 
     @cached_property
     def enclosed_index(self) -> np.ndarray:
@@ -284,8 +340,10 @@ class RunView:
         if self.prev is None:
             return np.zeros((0, 2), np.int64)
         prev_labels, labels = self.prev.void[1], self.void[1]
-        where = self.enclosed[::2, ::2] | self.prev.enclosed[::2, ::2]
-        pairs = raster.overlap_pairs(prev_labels[::2, ::2], labels[::2, ::2], where)
+        (a, b), (c, d) = self.window, self.prev.window  # enclosed void lies in either; both start even
+        rs, cs = slice(min(a.start, c.start), max(a.stop, c.stop), 2), slice(min(b.start, d.start), max(b.stop, d.stop), 2)
+        where = self.enclosed[rs, cs] | self.prev.enclosed[rs, cs]
+        pairs = raster.overlap_pairs(prev_labels[rs, cs], labels[rs, cs], where)
         extra = [pairs]
         for side, view, other in ((1, self, prev_labels), (0, self.prev, labels)):
             seen = np.zeros(view.void[0], bool)
