@@ -73,7 +73,10 @@ class DesignOut(Schema):
 
 class ParametricIn(Schema):
     kind: Kind
-    parameters: dict[Text, float | int | Text] = Field(default_factory=dict, description="see GET /components")
+    # Keys stay plain str: a key pattern reaches the description as propertyNames, which clients and fuzzers
+    # do not all honour; a key that is not a parameter of the kind (a NUL in it included) is refused with a
+    # sentence by the generator's own check.
+    parameters: dict[str, float | int | Text] = Field(default_factory=dict, description="see GET /components")
     printer: str = Field(pattern=NO_NUL, description="printer slug: the part must fit its build volume")
     material: str = Field(pattern=NO_NUL, description="material slug: its index shapes the part")
     revision_of: UUID | None = None

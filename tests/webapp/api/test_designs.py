@@ -149,5 +149,8 @@ def test_a_nul_character_in_text_is_refused_with_a_sentence_never_a_500(as_alice
     assert logs.status_code == 422
     checked = as_alice.post("checks", {"design": alice_design["id"], "printer": "bay1\x00", "material": "x"})
     assert checked.status_code == 422
+    odd_key = as_alice.post("designs/parametric", {"kind": "window", "parameters": {"diameter\x00_mm": 20.0},
+                                                   "printer": "bay1-lcd-resin", "material": "standard-resin"})
+    assert odd_key.status_code == 400, odd_key.content
     missing = as_alice.get("printers/bay\x001")
     assert missing.status_code == 404 and missing.json()["code"] == "not_found"
