@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import base64
 import json
+from dataclasses import dataclass
 
 import cv2
 import numpy as np
@@ -74,9 +75,25 @@ def view_markers(findings: list[Finding] | tuple[Finding, ...]) -> list[dict]:
     return list(spots.values())
 
 
-def part_view_json(part, stack, findings) -> str:
-    """Return the 3D view's data for one checked part (its oriented mesh, layer stack and sorted findings)."""
+@dataclass(frozen=True, slots=True)
+class PreparedViews:
+    """What the pictures and the 3D view draw that does not depend on the findings, made once per check."""
+
+    vertices_mm: np.ndarray  # the decimated mesh (float32), for the perspective picture and the 3D view
+    faces: np.ndarray
+    outlines: dict  # layer_outlines(stack)
+
+
+def prepare_views(part, stack) -> PreparedViews:
+    """Return the decimated mesh and the layer outlines (the costly, finding-free part of the pictures)."""
     vertices, faces = decimated_mesh(part.vertices_mm, part.faces)
+    return PreparedViews(vertices, faces, layer_outlines(stack))
+
+
+def part_view_json(part, stack, findings, prepared: PreparedViews | None = None) -> str:
+    """Return the 3D view's data for one checked part (its oriented mesh, layer stack and sorted findings)."""
+    prepared = prepared or prepare_views(part, stack)
+    vertices, faces = prepared.vertices_mm, prepared.faces
     lo = np.asarray(part.vertices_mm).min(axis=0)
     hi = np.asarray(part.vertices_mm).max(axis=0)
     view = {
@@ -86,7 +103,7 @@ def part_view_json(part, stack, findings) -> str:
         "mesh": {"positions": _b64(vertices), "indices": _b64(faces), "triangles": int(len(faces)),
                  "source_triangles": int(len(part.faces))},
         "layers": {"count": int(stack.count), "height_mm": float(stack.layer_height_mm),
-                   "z0_mm": float(stack.origin_mm[2]), "pixel_mm": float(stack.pixel_mm), **layer_outlines(stack)},
+                   "z0_mm": float(stack.origin_mm[2]), "pixel_mm": float(stack.pixel_mm), **prepared.outlines},
         "markers": view_markers(findings),
     }
     return json.dumps(view, separators=(",", ":"))

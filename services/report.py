@@ -15,7 +15,7 @@ from services.alternatives import what_must_change
 from services.errors import UnusableInput
 from services.findings import NOT_PRINTABILITY, Finding, sorted_by_severity, verdict_of
 from services.part import Part
-from services.part_view import part_view_json
+from services.part_view import PreparedViews, part_view_json, prepare_views
 from services.profiles import Material, PrinterProfile, check_pairing
 from services.rules import run_rules
 from services.rules.build_fit import check_build_fit
@@ -35,8 +35,8 @@ PART_VIEW_FILE = "part-view.json"
 EXTRA_FILES = ("transmission.s2p", PART_VIEW_FILE)
 
 # Share of the progress bar each stage takes, in run order (slicing and optics dominate).
-STAGES = (("reading", 0.02), ("slicing", 0.28), ("rules", 0.28), ("estimate", 0.05), ("optics", 0.25), ("pictures", 0.05),
-          ("alternatives", 0.04), ("target_changes", 0.03))
+STAGES = (("reading", 0.02), ("slicing", 0.28), ("rules", 0.28), ("estimate", 0.05), ("optics", 0.23), ("views", 0.02),
+          ("pictures", 0.05), ("alternatives", 0.04), ("target_changes", 0.03))
 
 
 
@@ -108,7 +108,7 @@ def build_report(*, part: Part, printer: PrinterProfile, material: Material,
         oriented, pixel_mm=printer.pixel_mm, layer_height_mm=printer.layer_height_mm, progress=p))
     fit_findings, build = check_build_fit(oriented, printer)
     solid = _has_solid(stack)
-    rules, estimate, optics = _rules_estimate_optics(
+    rules, estimate, optics, prepared = _rules_estimate_optics(
         stages, part=part, oriented=oriented, stack=stack, printer=printer, material=material, settings=settings,
         calibration=calibration, concurrent=concurrent_stages and solid)
     figures = {**rules.figures, **(optics.figures if optics else {})}
@@ -122,8 +122,8 @@ def build_report(*, part: Part, printer: PrinterProfile, material: Material,
                                          "optics": optics.to_dict() if optics else None,
                                          "build": {**build, **rules.summary}})
     findings = [*map(_finite_finding, findings), *_blanked_findings(part.name, blanked)]
-    overview, view = stages.run("pictures", lambda p: (_overview_pictures(stack, oriented, findings),
-                                                       part_view_json(oriented, stack, findings)))
+    overview, view = stages.run("pictures", lambda p: (_overview_pictures(stack, prepared, findings),
+                                                       part_view_json(oriented, stack, findings, prepared)))
     figures.update(overview)
     # The alternatives re-run the printability checks only, so only printability blockers go in.
     printability = [f for f in findings if f.rule not in NOT_PRINTABILITY]
@@ -148,7 +148,8 @@ def build_report(*, part: Part, printer: PrinterProfile, material: Material,
 
 def _rules_estimate_optics(stages: Stages, *, part, oriented, stack, printer, material, settings, calibration,
                            concurrent: bool):
-    """Return (rules, estimate, optics): rules then estimate (it needs their support volume), optics beside them.
+    """Return (rules, estimate, optics, prepared views): rules then estimate (it needs their support volume),
+    optics and the finding-free half of the pictures beside them.
 
     Both branches only read the stack and the part. Whether run side by side or in order, the
     outcome is the same, errors included (see Stages.side_by_side).
@@ -162,10 +163,12 @@ def _rules_estimate_optics(stages: Stages, *, part, oriented, stack, printer, ma
                                                                  calibration) if solid else None)
 
     def optics():
-        return stages.run("optics", lambda p: _optics(oriented, stack, printer, material, settings, p) if solid else None)
+        seen = stages.run("optics", lambda p: _optics(oriented, stack, printer, material, settings, p) if solid else None)
+        return seen, stages.run("views", lambda p: prepare_views(oriented, stack))
 
-    (rules, estimate), seen = stages.side_by_side(printability, optics) if concurrent else (printability(), optics())
-    return rules, estimate, seen
+    (rules, estimate), (seen, prepared) = (stages.side_by_side(printability, optics) if concurrent
+                                           else (printability(), optics()))
+    return rules, estimate, seen, prepared
 
 
 def finite_sections(sections: dict) -> tuple[dict, list[str]]:
@@ -253,16 +256,17 @@ def _optics(part, stack, printer, material, settings, progress=None, with_figure
                          settings=settings.effective_optics(), progress=progress, with_figures=with_figures)
 
 
-def _overview_pictures(stack, part: Part, findings: list[Finding]) -> dict[str, bytes]:
+def _overview_pictures(stack, prepared: PreparedViews, findings: list[Finding]) -> dict[str, bytes]:
     """Return the views a designer looks at first: from above and in perspective, findings numbered.
 
-    A marker's number is the finding's place in the report's (sorted) list, counting from 1.
+    A marker's number is the finding's place in the report's (sorted) list, counting from 1. The
+    perspective draws the prepared (decimated) mesh, the one the 3D view shows.
     """
     markers = finding_markers(findings)
     thick = stack.thickness_mm
     top = pictures.map_png(thick, pixel_mm=stack.pixel_mm, unit="mm", mask=thick > 0, markers=markers,
                            origin_mm=stack.origin_mm[:2], title="As-printed thickness, seen from above (+z)")
-    view = pictures.perspective_png(part.vertices_mm, part.faces, markers=markers,
+    view = pictures.perspective_png(prepared.vertices_mm, prepared.faces, markers=markers,
                                     title="The part as built, in perspective (build plate below)")
     return {"thickness_map.png": top, "perspective.png": view}
 

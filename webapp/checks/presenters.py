@@ -7,7 +7,8 @@ from services.render.diff import diff_reports
 from services.render.tables import headline, optics_rows, requirement_rows, severity_counts
 
 STAGES = (("reading", "Reading the mesh"), ("slicing", "Slicing into layers"), ("rules", "Checking design rules"),
-          ("estimate", "Estimating time and cost"), ("optics", "Predicting the optics"), ("pictures", "Drawing pictures"),
+          ("estimate", "Estimating time and cost"), ("optics", "Predicting the optics"),
+          ("views", "Preparing the 3D view"), ("pictures", "Drawing pictures"),
           ("alternatives", "Trying other printers and orientations"))
 
 FAILURE_ADVICE = {
