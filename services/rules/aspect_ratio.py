@@ -51,7 +51,7 @@ class Collector(RuleCollector):
         return True
 
     def visit(self, view: RunView) -> None:
-        count, _ = view.solid
+        count, _ = view.solid_in_window
         if count <= 1:
             self._prev = None
             return

@@ -144,7 +144,6 @@ def thin_parts(view: RunView, n_sup: int | None, n_uns: int | None):
     (free-standing section labels as a lookup or None, then rows, cols, width px and depth px
     (distance to the nearest void) of the thin pixels judged against the supported limit).
     """
-    _, labels = view.solid
     free_lut = _narrow_labels(view, n_uns) if n_uns is not None else None
     none = np.zeros(0, np.int64)
     if n_sup is None:
@@ -154,10 +153,9 @@ def thin_parts(view: RunView, n_sup: int | None, n_uns: int | None):
     opened = raster.open_disk(mask, n_sup)
     rows, cols = raster.coords(mask & ~opened)
     keep = ~_next_to(opened, rows, cols)  # one pixel of staircase tolerance
+    if free_lut is not None and rows.size:
+        keep &= ~free_lut[view.solid_in_window[1][rows, cols]]
     rows, cols = rows[keep] + rs.start, cols[keep] + cs.start
-    if free_lut is not None:
-        keep = ~free_lut[labels[rows, cols]]
-        rows, cols = rows[keep], cols[keep]
     if rows.size == 0:
         return free_lut, none, none, np.zeros(0), np.zeros(0)
     width, depth = _ray(view.mask, rows, cols, n_sup)

@@ -208,7 +208,8 @@ class RunView:
         return out
 
     @cached_property
-    def _solid_in_window(self) -> tuple[int, np.ndarray]:
+    def solid_in_window(self) -> tuple[int, np.ndarray]:
+        """Return ``solid`` on the window alone: (count, labels), labels[r, c] at frame pixel (r0 + r, c0 + c)."""
         return raster.label(self.filled[self.window], 8)
 
     @cached_property
@@ -218,7 +219,7 @@ class RunView:
         A tube or a hollow box is one section as wide as its outline, so its walls count as walls,
         not as free-standing fins (a part standing inside another's cavity joins that section).
         """
-        count, labels = self._solid_in_window
+        count, labels = self.solid_in_window
         return count, self._framed(labels)
 
     @cached_property
@@ -243,7 +244,7 @@ class RunView:
         4 d - 1 (d in half-grid pixels), within about two pixels. Sections too small to be sampled get
         1.5 px. ``exact_widths`` and ``refine_width`` give more where it matters.
         """
-        count, labels = self._solid_in_window
+        count, labels = self.solid_in_window
         half = np.ascontiguousarray(self.filled[self.window][::2, ::2])
         dist = cv2.distanceTransform(half.view(np.uint8), cv2.DIST_L2, 5)
         sub = labels[::2, ::2]
@@ -264,7 +265,7 @@ class RunView:
         centre: exact for a wall an odd number of pixels wide, one pixel low for an even one
         (``refine_width`` settles those that matter).
         """
-        count, labels = self._solid_in_window
+        count, labels = self.solid_in_window
         dist = self._dist_in_window
         deep, at = raster.per_label_max(dist, labels, count, raster.ridge(dist, self.filled[self.window]))
         at = self.frame_flat(at, dist.shape[1])
@@ -282,10 +283,12 @@ class RunView:
         if self.prev is None:
             return np.zeros((0, 2), np.int64)
         (a, b), (c, d) = self.window, self.prev.window  # both start even: the sampling stays the frame's
-        rs, cs = slice(max(a.start, c.start), min(a.stop, c.stop)), slice(max(b.start, d.start), min(b.stop, d.stop))
-        if rs.start >= rs.stop or cs.start >= cs.stop:
+        r0, r1, c0, c1 = max(a.start, c.start), min(a.stop, c.stop), max(b.start, d.start), min(b.stop, d.stop)
+        if r0 >= r1 or c0 >= c1:
             return np.zeros((0, 2), np.int64)
-        return raster.overlap_pairs(self.prev.solid[1][rs, cs], self.solid[1][rs, cs], step=2)
+        here, below = self.solid_in_window[1], self.prev.solid_in_window[1]
+        return raster.overlap_pairs(below[r0 - c.start:r1 - c.start, c0 - d.start:c1 - d.start],
+                                    here[r0 - a.start:r1 - a.start, c0 - b.start:c1 - b.start], step=2)
 
     @cached_property
     def new(self) -> np.ndarray:
