@@ -35,14 +35,15 @@ def layer_outlines(stack, max_points: int = MAX_OUTLINE_POINTS) -> dict:
     outlines = []
     for first, last, mask in stack.runs():  # one raster at a time: a list of them all held 1.9 GB on a 2M-triangle lens
         contours, _ = cv2.findContours(mask.view(np.uint8), cv2.RETR_LIST, cv2.CHAIN_APPROX_SIMPLE)
-        loops = []
-        for c in contours:
-            c = cv2.approxPolyDP(c, 0.75, True).reshape(-1, 2).astype(np.float64)
-            if len(c) >= 2:
-                # Pixel (col, row) -> mm at the pixel centre, as the stack's x/y centres.
-                xy = np.column_stack([ox + (c[:, 0] + 0.5) * stack.pixel_mm, oy + (c[:, 1] + 0.5) * stack.pixel_mm])
-                loops.append(xy.astype(np.float32))
-        outlines.append((first, last, loops))
+        kept = [c for c in (cv2.approxPolyDP(c, 0.75, True) for c in contours) if len(c) >= 2]
+        if not kept:
+            outlines.append((first, last, []))
+            continue
+        # Pixel (col, row) -> mm at the pixel centre, as the stack's x/y centres; all loops of the run at once.
+        c = np.concatenate(kept).reshape(-1, 2).astype(np.float64)
+        xy = np.column_stack([ox + (c[:, 0] + 0.5) * stack.pixel_mm, oy + (c[:, 1] + 0.5) * stack.pixel_mm])
+        ends = np.cumsum([len(k) for k in kept])[:-1]
+        outlines.append((first, last, np.split(xy.astype(np.float32), ends)))
     total = sum(len(loop) for _, _, loops in outlines for loop in loops)
     every = max(1, int(np.ceil(total / max_points))) if total else 1
     shown = outlines[::every] if every > 1 else outlines
