@@ -36,7 +36,7 @@ from services.findings import Finding, rule_label
 from services.rules import RuleOutput, raster, thin
 from services.rules.common import (Groups, RuleCollector, family_check, fmt_mm, fmt_xyz, group_instances, output,
                                    picture)
-from services.rules.scan import RunView, refine_width
+from services.rules.scan import RunView, refine_width, refine_widths
 
 RULE = "min_feature"
 
@@ -214,8 +214,8 @@ def _narrow_labels(view: RunView, n_px: int) -> np.ndarray:
     width, at = view.exact_widths
     narrow = (width > 0) & (width < n_px)
     edge = np.flatnonzero(narrow & (width >= n_px - 1.5))
-    for label in edge.tolist():
-        narrow[label] = bool(thin.is_under(refine_width(view.filled, int(at[label]), float(width[label])), n_px))
+    if edge.size:
+        narrow[edge] = thin.is_under(refine_widths(view, at[edge], width[edge]), n_px)
     return narrow
 
 

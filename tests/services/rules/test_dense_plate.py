@@ -2,6 +2,8 @@
 
 from dataclasses import replace
 
+import numpy as np
+
 import pytest
 from manifold3d import Manifold, OpType
 
@@ -36,3 +38,27 @@ def test_every_pillar_of_a_dense_plate_is_judged(stack_of, run_check, slug, dz):
     if profile.rules["min_feature"]["unsupported_mm"] < 1.2:  # the pins rise higher than the free-standing limit
         (thin,) = [f for f in out.findings if f.rule == "min_feature"]
         assert thin.count == 64 and abs(thin.measured - 1.6 * profile.pixel_mm) <= profile.pixel_mm
+
+
+def test_many_sections_refined_at_once_read_as_one_at_a_time(stack_of):
+    """The batch refinement of a dense run (one fine distance map of the window) gives each section the width
+    its own crop gives: discs and squares of 2-9 px (compact: mean with the area-equivalent diameter) and bars
+    longer than a crop (elongated: the inscribed width alone), next to each other and at the window's edge."""
+    from services.rules.scan import BATCH_FROM, Frame, RunView, refine_width, refine_widths
+
+    px, shapes = 0.05, []
+    for k in range(80):
+        size, x, y = (2 + k % 8) * px, (k % 10) * 0.8, (k // 10) * 0.8
+        cut = Manifold.cylinder(1.0, size / 2, circular_segments=24) if k % 3 else Manifold.cube((size, size, 1.0))
+        shapes.append(cut.translate((x + 0.4, y + 0.4, 0.0)))
+    shapes += [Manifold.cube((6.0, (2 + k) * px, 1.0)).translate((0.2, 7.0 + k * 0.6, 0.0)) for k in range(4)]
+    part, stack = stack_of(Manifold.batch_boolean(shapes, OpType.Add), pixel_mm=px, layer_height_mm=px)
+    frame = Frame(stack, 2)
+    first, last, mask = next(iter(stack.runs()))
+    view = RunView(frame, 0, first, last, frame.pad_mask(mask), None, None)
+    width, at = view.exact_widths
+    sections = np.flatnonzero(width > 0)
+    assert sections.size == 84 >= BATCH_FROM
+    batch = refine_widths(view, at[sections], width[sections])
+    one_by_one = [refine_width(view.filled, int(at[s]), float(width[s])) for s in sections]
+    np.testing.assert_array_equal(batch, one_by_one)
