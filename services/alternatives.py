@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import time
 from collections.abc import Callable, Sequence
+from concurrent.futures import FIRST_COMPLETED, ThreadPoolExecutor, wait
 from dataclasses import asdict, dataclass, replace
 
 import numpy as np
@@ -62,12 +63,14 @@ class Alternative(TriedChange):
 def what_must_change(*, part: Part, printer: PrinterProfile, material: Material, settings: CheckSettings,
                      findings: Sequence[Finding],
                      catalogue: Sequence[tuple[PrinterProfile, Material]] | Callable[[], Sequence] = (),
-                     budget_s: float = 60.0, progress: Callable[[float], None] | None = None) -> list[Alternative]:
+                     budget_s: float = 60.0, progress: Callable[[float], None] | None = None,
+                     at_once: int = 2) -> list[Alternative]:
     """Return up to three changes that remove blockers from the part, best first (empty: no blockers to remove).
 
     ``catalogue`` is the lab's (printer, material) pairs to try besides the part's own, or a function returning
     them (called only when something blocks, so a clean part costs no catalogue read); ``budget_s`` bounds the
-    work (candidates are tried cheapest first, and the search stops when the budget is spent).
+    work (candidates are tried cheapest first, and the search stops when the budget is spent); ``at_once``
+    candidates are tried side by side (1 where memory is tight: each holds its own layer stack).
     """
     blockers = [f for f in findings if f.severity == "blocker"]
     # Mesh defects go with the part wherever it is printed: no printer or orientation removes them.
@@ -80,20 +83,40 @@ def what_must_change(*, part: Part, printer: PrinterProfile, material: Material,
     factor = scale_to_clear(blockers)
     if factor is not None:  # after the orientations: a scaled part is a different design
         candidates.insert(len(TURNS.get(settings.orientation, ("+z",))), ("scale", printer, material, settings.orientation))
-    tried: list[Alternative] = []
-    start = time.monotonic()
-    for i, (kind, cand_printer, cand_material, orientation) in enumerate(candidates):
-        if time.monotonic() - start > budget_s:
-            break
+
+    def attempt(candidate) -> Alternative:
+        kind, cand_printer, cand_material, orientation = candidate
         scaled = kind == "scale"
-        tried.append(_try(scaled_part(part, factor) if scaled else part, kind, cand_printer, cand_material,
-                          orientation, before, blockers, material,
-                          same_frame=orientation == settings.orientation and not scaled, factor=factor))
-        if progress:
-            progress((i + 1) / len(candidates))
+        return _try(scaled_part(part, factor) if scaled else part, kind, cand_printer, cand_material,
+                    orientation, before, blockers, material,
+                    same_frame=orientation == settings.orientation and not scaled, factor=factor)
+
+    tried = _tried_side_by_side(attempt, candidates, budget_s, progress, at_once)
     better = [a for a in tried if a.blockers < len(blockers) or a.blockers_removed]
     better.sort(key=lambda a: (a.blockers, a.cautions, a.kind != "orientation", a.cost_one or 0.0))
     return better[:SHOWN]
+
+
+def _tried_side_by_side(attempt: Callable, candidates: list, budget_s: float,
+                        progress: Callable[[float], None] | None, at_once: int) -> list[Alternative]:
+    """Return ``attempt(c)`` for the candidates in order, ``at_once`` at a time (slicing and rules release the GIL
+    in their numpy and OpenCV loops), starting no new one once ``budget_s`` is spent. Progress stays here."""
+    results: dict[int, Alternative] = {}
+    start = time.monotonic()
+    with ThreadPoolExecutor(max_workers=max(1, at_once), thread_name_prefix="phasewright-change") as pool:
+        running, queued = {}, list(enumerate(candidates))
+        while queued or running:
+            while queued and len(running) < max(1, at_once) and time.monotonic() - start <= budget_s:
+                i, candidate = queued.pop(0)
+                running[pool.submit(attempt, candidate)] = i
+            if not running:
+                break  # the budget is spent
+            done, _ = wait(running, return_when=FIRST_COMPLETED)
+            for future in done:
+                results[running.pop(future)] = future.result()
+            if progress:
+                progress(len(results) / len(candidates))
+    return [results[i] for i in sorted(results)]
 
 
 WIDTH_RULES = ("min_feature", "min_gap", "min_hole")

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import hashlib
 import math
+import threading
 from collections.abc import Callable
 from functools import cached_property
 
@@ -17,18 +18,18 @@ import numpy as np
 
 from services.rules import raster, thin
 
-_cache: dict = {}
+_cache = threading.local()  # per thread: two checks (or two tried changes) at once never share an entry
 
 
 def outputs(stack, part, printer, families: dict[str, Callable],
             progress: Callable[[float], None] | None = None) -> dict:
     """Return {family: RuleOutput} for the families enabled on this printer, computing them once."""
     key = (_fingerprint(stack), id(part), repr(printer), tuple(families))
-    if _cache.get("key") != key:
-        _cache.clear()
-        _cache["value"] = _run(stack, part, printer, families, progress)
-        _cache["key"] = key
-    return _cache["value"]
+    if getattr(_cache, "key", None) != key:
+        _cache.key, _cache.value = None, None
+        _cache.value = _run(stack, part, printer, families, progress)
+        _cache.key = key
+    return _cache.value
 
 
 def _fingerprint(stack) -> tuple:
