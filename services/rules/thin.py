@@ -101,12 +101,26 @@ def is_under(width_px: np.ndarray, limit_px: int) -> np.ndarray:
     return np.asarray(width_px) < limit_px - 0.5
 
 
+REMAP_MAX = 32_000  # OpenCV's remap takes maps and sources under 32,767 (SHRT_MAX) rows and columns
+
+
 def _edge_to_edge(mask, vy, vx, uy, ux, cap_px: int) -> np.ndarray:
     """Return the distance (px) between the two edges met along each line, from the smoothed mask's half level.
 
     The mask smoothed over a Gaussian of 0.7 px crosses one half within about a quarter pixel of a
     straight edge drawn at any angle; samples a quarter pixel apart, linearly interpolated between.
+    Many lines, or lines spread wider than OpenCV's remap takes, are measured in parts (split along
+    the wider spread, so each part's crop stays small).
     """
+    span = max(int(vy.max() - vy.min()), int(vx.max() - vx.min())) + 2 * cap_px + 10
+    if vy.size > REMAP_MAX or span >= REMAP_MAX:
+        along = vy if vy.max() - vy.min() >= vx.max() - vx.min() else vx
+        order = np.argsort(along, kind="stable")
+        half = order.size // 2
+        out = np.empty(vy.size)
+        for part in (order[:half], order[half:]):
+            out[part] = _edge_to_edge(mask, vy[part], vx[part], uy[part], ux[part], cap_px)
+        return out
     r0, r1 = int(max(vy.min() - cap_px - 4, 0)), int(min(vy.max() + cap_px + 5, mask.shape[0]))
     c0, c1 = int(max(vx.min() - cap_px - 4, 0)), int(min(vx.max() + cap_px + 5, mask.shape[1]))
     level = cv2.GaussianBlur(mask[r0:r1, c0:c1].astype(np.float32), (5, 5), 0.7, borderType=cv2.BORDER_CONSTANT)

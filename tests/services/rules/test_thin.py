@@ -83,3 +83,16 @@ def test_a_square_wall_reads_its_pixel_count_at_every_pixel(width):
     near = raster.void_index(mask, numbers[rows, cols])
     assert np.all(np.abs(thin.widths_across(mask, rows, cols, near, 20) - width) <= 1e-6)
     assert np.all(np.abs(thin.widths_across(mask, rows, cols, near, width) - width) <= 0.05)  # refined at the limit
+
+
+def test_more_lines_than_opencv_remaps_at_once_and_a_wall_wider_than_it_reads():
+    """OpenCV's remap refuses maps or images of 32,767 rows or columns or more (SHRT_MAX, its assertion in
+    imgwarp.cpp): a 100 mm zoned lens at 25 um asked for more near-limit lines than that and the check stopped.
+    A 5 px wall 40,000 px long, measured across from 39,980 void pixels beside it, reads 5 px everywhere."""
+    mask = np.zeros((12, 40_000), bool)
+    mask[4:9] = True
+    vx = np.arange(10, 39_990)  # the wall's ends at the array's edge blur: away from them
+    vy = np.full(vx.size, 3)
+    width = thin._edge_to_edge(mask, vy, vx, np.ones(vx.size), np.zeros(vx.size), 6)
+    assert width.shape == (39_980,)
+    np.testing.assert_allclose(width, 5.0, atol=0.25)
