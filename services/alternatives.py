@@ -84,14 +84,19 @@ def what_must_change(*, part: Part, printer: PrinterProfile, material: Material,
     if factor is not None:  # after the orientations: a scaled part is a different design
         candidates.insert(len(TURNS.get(settings.orientation, ("+z",))), ("scale", printer, material, settings.orientation))
 
-    def attempt(candidate) -> Alternative:
+    deadline = time.monotonic() + budget_s
+
+    def attempt(candidate) -> Alternative | None:
         kind, cand_printer, cand_material, orientation = candidate
         scaled = kind == "scale"
-        return _try(scaled_part(part, factor) if scaled else part, kind, cand_printer, cand_material,
-                    orientation, before, blockers, material,
-                    same_frame=orientation == settings.orientation and not scaled, factor=factor)
+        try:
+            return _try(scaled_part(part, factor) if scaled else part, kind, cand_printer, cand_material,
+                        orientation, before, blockers, material,
+                        same_frame=orientation == settings.orientation and not scaled, factor=factor, deadline=deadline)
+        except _OutOfTime:
+            return None  # not finished within the budget: not shown
 
-    tried = _tried_side_by_side(attempt, candidates, budget_s, progress, at_once)
+    tried = [a for a in _tried_side_by_side(attempt, candidates, budget_s, progress, at_once) if a is not None]
     better = [a for a in tried if a.blockers < len(blockers) or a.blockers_removed]
     better.sort(key=lambda a: (a.blockers, a.cautions, a.kind != "orientation", a.cost_one or 0.0))
     return better[:SHOWN]
@@ -224,14 +229,27 @@ def lost_features(stack, blockers: Sequence[Finding]) -> list[Finding]:
     return lost
 
 
+class _OutOfTime(Exception):
+    """Raised from a tried change's progress once the search's budget is spent."""
+
+
 def _try(part, kind, printer, material, orientation, before, blockers, own_material, *, same_frame: bool,
-         factor: float | None = None) -> Alternative:
+         factor: float | None = None, deadline: float | None = None) -> Alternative | None:
+    """Return what the check finds after the change, or None when the part still does not fit the printer
+    (nothing else about it matters then; the build-fit check is cheap, the slicing and rules are not)."""
     from services.estimate import estimate_print
 
+    def in_time(_fraction: float) -> None:
+        if deadline is not None and time.monotonic() > deadline:
+            raise _OutOfTime
+
     oriented = layers.orient_part(part, orientation)
-    stack = layers.build_layer_stack(oriented, pixel_mm=printer.pixel_mm, layer_height_mm=printer.layer_height_mm)
     fit, _ = check_build_fit(oriented, printer)
-    rules = run_rules(stack=stack, part=oriented, printer=printer)
+    if any(f.severity == "blocker" for f in fit):
+        return None
+    stack = layers.build_layer_stack(oriented, pixel_mm=printer.pixel_mm, layer_height_mm=printer.layer_height_mm,
+                                     progress=in_time)
+    rules = run_rules(stack=stack, part=oriented, printer=printer, progress=in_time)
     # A feature the printer's grid drops is not fixed: its blocker stands (same orientation, same frame).
     lost = lost_features(stack, blockers) if same_frame else []
     found = [*fit, *rules.findings, *lost]

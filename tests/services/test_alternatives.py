@@ -100,3 +100,31 @@ def test_a_generated_parts_scale_names_the_frequency_it_is_then_designed_for():
     printer, material = PRINTERS["bay1-lcd-resin"], MATERIALS["standard-resin"]
     words = change_sentence("scale", printer, material, factor=1.25, freq_ghz=300.0)
     assert words == "scale the whole part by 1.25, the same design for 240 GHz instead of 300 GHz"
+
+
+def test_a_plate_too_wide_for_the_printer_is_turned_onto_its_edge_never_left_flat(make_part):
+    """A 100 x 100 x 2 mm plate does not fit the LCD printer's 130 x 80 mm plate lying flat, right way up or upside
+    down; only a turn onto its edge fits. A change that still does not fit is not tried further (a part that does
+    not fit cannot be printed, whatever the rules say) and is never suggested."""
+    plate = trimesh.creation.box(extents=(100, 100, 2))
+    part = make_part(plate, name="wide.stl")
+    printer, material = PRINTERS["bay1-lcd-resin"], MATERIALS["standard-resin"]
+    fit = [Finding("build_fit", "blocker", "does not fit")]
+    found = what_must_change(part=part, printer=printer, material=material, settings=CheckSettings(), findings=fit)
+    assert found and {a.orientation for a in found} <= {"+x", "+y"}
+    assert all("build_fit" in a.blockers_removed for a in found), found
+
+
+def test_a_change_still_running_when_the_budget_is_spent_is_dropped(make_part):
+    """The search's budget bounds its time even when one change is slow: a change still slicing or checking when the
+    budget runs out stops at its next progress report and is not shown (here the budget is already spent)."""
+    import time
+
+    from services import alternatives
+
+    part = _finned(make_part)
+    printer, material = PRINTERS["bay1-lcd-resin"], MATERIALS["standard-resin"]
+    blockers = _blockers(part, printer)
+    with pytest.raises(alternatives._OutOfTime):
+        alternatives._try(part, "orientation", printer, material, "-z", {"min_feature"}, blockers, material,
+                          same_frame=False, deadline=time.monotonic() - 1.0)
