@@ -11,6 +11,7 @@ import hashlib
 import math
 import threading
 from collections.abc import Callable
+from concurrent.futures import Future, ThreadPoolExecutor
 from functools import cached_property
 
 import cv2
@@ -46,22 +47,57 @@ def _run(stack, part, printer, families: dict[str, Callable], progress=None) -> 
     wants = {want for c in active for want in getattr(c, "needs", ())}
     below = BelowTop(frame) if wants else None
     frame.bounded = Bounded(frame) if "bounded" in wants else None
+    ahead = _ahead_of({c.rule for c in active})
     prev, reported = None, 0.0
-    for index, (first, last, mask) in enumerate(stack.runs()):
-        view = RunView(frame, index, first, last, frame.pad_mask(mask), prev, below)
-        for collector in active:
-            collector.visit(view)
-        if frame.bounded is not None:
-            frame.bounded.update(view, below)
-        if below is not None:
-            below.update(view)
-        if prev is not None:
-            prev.forget()
-        prev = view
-        if progress is not None and (last + 1) / stack.count - reported >= 1 / 32:
-            reported = (last + 1) / stack.count
-            progress(0.9 * reported)
+    runs = enumerate(stack.runs())
+    # The next run's labels and distance maps are made in a second thread while the families visit this one
+    # (OpenCV and numpy release the GIL): a second core left idle by the optics' end is used. Only what needs
+    # no previous run is made ahead, and only the main thread touches a view once it is handed over.
+    with ThreadPoolExecutor(max_workers=1, thread_name_prefix="phasewright-rules") as pool:
+        coming = _prepare_next(pool, frame, runs, below, ahead)
+        while coming is not None:
+            view = coming.result()
+            coming = _prepare_next(pool, frame, runs, below, ahead)
+            view.prev = prev
+            for collector in active:
+                collector.visit(view)
+            if frame.bounded is not None:
+                frame.bounded.update(view, below)
+            if below is not None:
+                below.update(view)
+            if prev is not None:
+                prev.forget()
+            prev = view
+            if progress is not None and (view.last + 1) / stack.count - reported >= 1 / 32:
+                reported = (view.last + 1) / stack.count
+                progress(0.9 * reported)
     return {name: c.finish(frame) for name, c in collectors.items()}
+
+
+def _ahead_of(rules: set[str]) -> tuple[str, ...]:
+    """Return the views' parts worth making ahead for these families (each is made once in any case)."""
+    ahead = ["window", "enclosed", "filled", "solid_in_window"]
+    if rules & {"aspect_ratio", "min_feature"}:
+        ahead.append("widths")
+    if rules & {"trapped_volume", "min_hole"}:
+        ahead.append("void")
+    return tuple(ahead)
+
+
+def _prepare_next(pool: ThreadPoolExecutor, frame: Frame, runs, below, ahead: tuple[str, ...]) -> Future | None:
+    """Submit the next run's view with its ``ahead`` parts made, or return None after the last run."""
+    step = next(runs, None)
+    if step is None:
+        return None
+    index, (first, last, mask) = step
+
+    def made() -> RunView:
+        view = RunView(frame, index, first, last, frame.pad_mask(mask), None, below)
+        for name in ahead:
+            getattr(view, name)
+        return view
+
+    return pool.submit(made)
 
 
 class Frame:
