@@ -1,6 +1,7 @@
 """The OpenAPI description the site serves: valid, complete, and true to the API's answers under fuzzing."""
 
 import json
+import os
 import re
 
 import pytest
@@ -81,7 +82,9 @@ fuzzed = _fuzzed_schema()
 @pytest.mark.slow
 @pytest.mark.usefixtures("seeded", "no_worker")
 @fuzzed.parametrize()
-@settings(max_examples=12, deadline=None, database=None,
+# The suite draws the same examples every run, so CI's verdict depends on the code alone; an exploring run with
+# fresh examples is one environment variable away: PHASEWRIGHT_FUZZ_EXPLORE=1 (what found the NUL cases).
+@settings(max_examples=12, deadline=None, database=None, derandomize=os.environ.get("PHASEWRIGHT_FUZZ_EXPLORE") != "1",
           suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow,
                                  HealthCheck.filter_too_much])
 def test_the_api_keeps_to_its_description_under_fuzzing(case, alice):
