@@ -96,22 +96,22 @@ def what_must_change(*, part: Part, printer: PrinterProfile, material: Material,
         except _OutOfTime:
             return None  # not finished within the budget: not shown
 
-    tried = [a for a in _tried_side_by_side(attempt, candidates, budget_s, progress, at_once) if a is not None]
+    tried = [a for a in _tried_side_by_side(attempt, candidates, deadline, progress, at_once) if a is not None]
     better = [a for a in tried if a.blockers < len(blockers) or a.blockers_removed]
     better.sort(key=lambda a: (a.blockers, a.cautions, a.kind != "orientation", a.cost_one or 0.0))
     return better[:SHOWN]
 
 
-def _tried_side_by_side(attempt: Callable, candidates: list, budget_s: float,
-                        progress: Callable[[float], None] | None, at_once: int) -> list[Alternative]:
+def _tried_side_by_side(attempt: Callable, candidates: list, deadline: float,
+                        progress: Callable[[float], None] | None, at_once: int) -> list[Alternative | None]:
     """Return ``attempt(c)`` for the candidates in order, ``at_once`` at a time (slicing and rules release the GIL
-    in their numpy and OpenCV loops), starting no new one once ``budget_s`` is spent. Progress stays here."""
-    results: dict[int, Alternative] = {}
-    start = time.monotonic()
-    with ThreadPoolExecutor(max_workers=max(1, at_once), thread_name_prefix="phasewright-change") as pool:
+    in their numpy and OpenCV loops), starting no new one after ``deadline`` (monotonic). Progress stays here."""
+    results: dict[int, Alternative | None] = {}
+    at_once = max(1, at_once)
+    with ThreadPoolExecutor(max_workers=at_once, thread_name_prefix="phasewright-change") as pool:
         running, queued = {}, list(enumerate(candidates))
         while queued or running:
-            while queued and len(running) < max(1, at_once) and time.monotonic() - start <= budget_s:
+            while queued and len(running) < at_once and time.monotonic() <= deadline:
                 i, candidate = queued.pop(0)
                 running[pool.submit(attempt, candidate)] = i
             if not running:

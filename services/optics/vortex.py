@@ -10,7 +10,7 @@ are orthogonal and free propagation keeps each one's power, so it is read on the
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import asdict, dataclass
 
 import numpy as np
 from scipy.ndimage import map_coordinates
@@ -35,7 +35,7 @@ class SpiralPlate:
     how: str
 
     def to_dict(self) -> dict:
-        return {"charge": self.charge, "steps": self.steps, "how": self.how}
+        return asdict(self)
 
 
 @dataclass(frozen=True, slots=True, eq=False)

@@ -36,6 +36,7 @@ class Collector(RuleCollector):
     """Track features upward and keep each layer's width as a section of its feature."""
 
     rule = RULE
+    ahead = ("widths",)  # what every run needs, made ahead in the scan's second thread
 
     def start(self, limits: dict, *, stack, printer) -> bool:
         (self.caution, self.blocker), _, ok = self.read_limits(

@@ -73,6 +73,7 @@ class RuleCollector:
     rule = ""
     pad_px = 2
     reach_px = 0  # how far past a run's material this family looks (RunView.window grows by at least this)
+    ahead: tuple[str, ...] = ()  # RunView parts this family reads on every run, worth making ahead (scan._run)
 
     def __init__(self, *, stack, part, printer) -> None:
         limits = printer.rule(self.rule)

@@ -48,6 +48,7 @@ class Collector(RuleCollector):
     """Collect thin material run by run; ``finish`` turns the instances into findings."""
 
     rule = RULE
+    ahead = ("widths",)  # what every run needs, made ahead in the scan's second thread
 
     def start(self, limits: dict, *, stack, printer) -> bool:
         (self.sup_mm, self.uns_mm), self.severity, ok = self.read_limits(

@@ -35,6 +35,7 @@ class Collector(RuleCollector):
     """Collect small enclosed holes run by run; ``finish`` adds the horizontal holes."""
 
     rule = RULE
+    ahead = ("void",)  # what every run needs, made ahead in the scan's second thread
 
     def start(self, limits: dict, *, stack, printer) -> bool:
         (self.along_mm, self.across_mm), self.severity, ok = self.read_limits(

@@ -47,7 +47,8 @@ def _run(stack, part, printer, families: dict[str, Callable], progress=None) -> 
     wants = {want for c in active for want in getattr(c, "needs", ())}
     below = BelowTop(frame) if wants else None
     frame.bounded = Bounded(frame) if "bounded" in wants else None
-    ahead = _ahead_of({c.rule for c in active})
+    shared = ("window", "enclosed", "filled", "solid_in_window")  # what every family's views start from
+    ahead = tuple(dict.fromkeys((*shared, *(part for c in active for part in c.ahead))))
     prev, reported = None, 0.0
     runs = enumerate(stack.runs())
     # The next run's labels and distance maps are made in a second thread while the families visit this one
@@ -72,16 +73,6 @@ def _run(stack, part, printer, families: dict[str, Callable], progress=None) -> 
                 reported = (view.last + 1) / stack.count
                 progress(0.9 * reported)
     return {name: c.finish(frame) for name, c in collectors.items()}
-
-
-def _ahead_of(rules: set[str]) -> tuple[str, ...]:
-    """Return the views' parts worth making ahead for these families (each is made once in any case)."""
-    ahead = ["window", "enclosed", "filled", "solid_in_window"]
-    if rules & {"aspect_ratio", "min_feature"}:
-        ahead.append("widths")
-    if rules & {"trapped_volume", "min_hole"}:
-        ahead.append("void")
-    return tuple(ahead)
 
 
 def _prepare_next(pool: ThreadPoolExecutor, frame: Frame, runs, below, ahead: tuple[str, ...]) -> Future | None:
@@ -266,12 +257,8 @@ class RunView:
 
     @cached_property
     def _dist_in_window(self) -> np.ndarray:
+        """Return each window pixel's distance (px) to the nearest open-air pixel centre (holes filled)."""
         return cv2.distanceTransform(self.filled[self.window].view(np.uint8), cv2.DIST_L2, 5)
-
-    @cached_property
-    def dist(self) -> np.ndarray:
-        """Return each pixel's distance (px) to the nearest open-air pixel centre (holes filled)."""
-        return self._framed(self._dist_in_window)
 
     @cached_property
     def widths(self) -> tuple[np.ndarray, np.ndarray]:

@@ -36,6 +36,7 @@ class Collector(RuleCollector):
     """Follow enclosed pockets up the stack and join them into cavities."""
 
     rule = RULE
+    ahead = ("void",)  # what every run needs, made ahead in the scan's second thread
 
     def __init__(self, *, stack, part, printer) -> None:
         self._part = part  # for the optical zone, read only if a cup is found

@@ -113,6 +113,11 @@ def test_a_plate_too_wide_for_the_printer_is_turned_onto_its_edge_never_left_fla
     found = what_must_change(part=part, printer=printer, material=material, settings=CheckSettings(), findings=fit)
     assert found and {a.orientation for a in found} <= {"+x", "+y"}
     assert all("build_fit" in a.blockers_removed for a in found), found
+    from services import alternatives
+
+    upside_down = alternatives._try(part, "orientation", printer, material, "-z", {"build_fit"}, fit, material,
+                                    same_frame=False)
+    assert upside_down is None  # dropped at the build-fit check, before any slicing
 
 
 def test_a_change_still_running_when_the_budget_is_spent_is_dropped(make_part):

@@ -268,33 +268,36 @@ def check_status(request, public_id):
 @login_required
 @require_GET
 def check_report_json(request, public_id):
-    obj = selectors.check_get_for(user=request.user, public_id=public_id)
-    if obj.report is None:
-        raise Http404("The report is not ready.")
-    response = JsonResponse(obj.report, json_dumps_params={"indent": 2})
-    response["Content-Disposition"] = f'attachment; filename="{_download_name(obj)}.json"'
-    return response
+    obj = _with_report(request, public_id)
+    return _attachment(JsonResponse(obj.report, json_dumps_params={"indent": 2}), f"{_download_name(obj)}.json")
 
 
 @login_required
 @require_GET
 def check_pdf(request, public_id):
-    obj = selectors.check_get_for(user=request.user, public_id=public_id)
-    if obj.report is None:
-        raise Http404("The report is not ready.")
-    response = HttpResponse(services.check_pdf(check=obj, site_root=request.build_absolute_uri("/")), content_type="application/pdf")
-    response["Content-Disposition"] = f'attachment; filename="{_download_name(obj)}.pdf"'
-    return response
+    obj = _with_report(request, public_id)
+    pdf = services.check_pdf(check=obj, site_root=request.build_absolute_uri("/"))
+    return _attachment(HttpResponse(pdf, content_type="application/pdf"), f"{_download_name(obj)}.pdf")
 
 
 @login_required
 @require_GET
 def check_findings_csv(request, public_id):
+    obj = _with_report(request, public_id)
+    csv = HttpResponse(findings_csv(obj.report), content_type="text/csv; charset=utf-8")
+    return _attachment(csv, f"{_download_name(obj)}-findings.csv")
+
+
+def _with_report(request, public_id):
+    """Return the user's check, or answer 404 while its report is not ready."""
     obj = selectors.check_get_for(user=request.user, public_id=public_id)
     if obj.report is None:
         raise Http404("The report is not ready.")
-    response = HttpResponse(findings_csv(obj.report), content_type="text/csv; charset=utf-8")
-    response["Content-Disposition"] = f'attachment; filename="{_download_name(obj)}-findings.csv"'
+    return obj
+
+
+def _attachment(response: HttpResponse, filename: str) -> HttpResponse:
+    response["Content-Disposition"] = f'attachment; filename="{filename}"'
     return response
 
 
