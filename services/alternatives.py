@@ -230,7 +230,36 @@ def lost_features(stack, blockers: Sequence[Finding]) -> list[Finding]:
 
 
 class _OutOfTime(Exception):
-    """Raised from a tried change's progress once the search's budget is spent."""
+    """Raised from a tried change's progress once the search's budget is spent, or once its pace shows it will be."""
+
+
+# A stage's pace is read once it is this far along and has run this long (before, the first layers say too little),
+# and it is stopped when what is left of it alone, at its pace so far, would need this many times the time left.
+PACE_FROM_FRACTION, PACE_FROM_S, PACE_MARGIN = 0.05, 1.0, 2.0
+
+
+def _paced(deadline: float | None) -> Callable[[float], None]:
+    """Return a progress callback for one stage of a tried change that raises ``_OutOfTime`` past the deadline,
+    or earlier when the stage's own pace says it cannot end by then.
+
+    The stage's remaining work is projected from its pace so far (its fraction done over the time it took); the
+    stages after it only add to that, so the projection is a lower bound of what the change still needs. The
+    margin covers stages whose work is unevenly spread (a lens's middle layers are its widest). A change that
+    could not be shown anyway stops early and leaves the cores to the changes that can.
+    """
+    start = time.monotonic()
+
+    def report(fraction: float) -> None:
+        if deadline is None:
+            return
+        now = time.monotonic()
+        if now > deadline:
+            raise _OutOfTime
+        spent = now - start
+        if fraction >= PACE_FROM_FRACTION and spent >= PACE_FROM_S:
+            if spent * (1.0 - fraction) / fraction > PACE_MARGIN * (deadline - now):
+                raise _OutOfTime
+    return report
 
 
 def _try(part, kind, printer, material, orientation, before, blockers, own_material, *, same_frame: bool,
@@ -239,17 +268,13 @@ def _try(part, kind, printer, material, orientation, before, blockers, own_mater
     (nothing else about it matters then; the build-fit check is cheap, the slicing and rules are not)."""
     from services.estimate import estimate_print
 
-    def in_time(_fraction: float) -> None:
-        if deadline is not None and time.monotonic() > deadline:
-            raise _OutOfTime
-
     oriented = layers.orient_part(part, orientation)
     fit, _ = check_build_fit(oriented, printer)
     if any(f.severity == "blocker" for f in fit):
         return None
     stack = layers.build_layer_stack(oriented, pixel_mm=printer.pixel_mm, layer_height_mm=printer.layer_height_mm,
-                                     progress=in_time)
-    rules = run_rules(stack=stack, part=oriented, printer=printer, progress=in_time)
+                                     progress=_paced(deadline))
+    rules = run_rules(stack=stack, part=oriented, printer=printer, progress=_paced(deadline))
     # A feature the printer's grid drops is not fixed: its blocker stands (same orientation, same frame).
     lost = lost_features(stack, blockers) if same_frame else []
     found = [*fit, *rules.findings, *lost]

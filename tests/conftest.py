@@ -6,6 +6,17 @@ nothing of alice's (404, not 403).
 
 import pytest
 
+# Tests that start workers, servers or a browser, or stop and restart services, or time how long a worker takes:
+# `make test` runs them after the parallel part, one at a time, so another test's load never decides them.
+SERIAL = ("tests/reliability/", "tests/webapp/e2e/", "tests/webapp/test_worker_e2e.py",
+          "tests/webapp/api/test_batch_live.py", "tests/webapp/checks/test_serve.py", "tests/security/test_deploy.py")
+
+
+def pytest_collection_modifyitems(config, items):
+    for item in items:
+        if item.nodeid.startswith(SERIAL):
+            item.add_marker(pytest.mark.serial)
+
 
 @pytest.fixture
 def alice(db, django_user_model):

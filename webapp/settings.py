@@ -75,8 +75,10 @@ X_FRAME_OPTIONS = "DENY"
 BEHIND_PROXY = envbool("PHASEWRIGHT_BEHIND_PROXY", "False" if DEBUG else "True")
 
 # Everything the app writes (SQLite file, local broker, uploads, reports) lives under one folder;
-# a test run (pytest sets PYTEST_VERSION) gets its own, so it never mixes with the demo's data.
-VAR_DIR = Path(envstr("PHASEWRIGHT_VAR_DIR", str(BASE_DIR / ("var/test" if os.environ.get("PYTEST_VERSION") else "var"))))
+# a test run (pytest sets PYTEST_VERSION) gets its own, so it never mixes with the demo's data, and each
+# of a parallel run's processes (pytest-xdist sets PYTEST_XDIST_WORKER: gw0, gw1, ...) one of its own.
+_TEST_VAR = "var/test" + (f"-{os.environ['PYTEST_XDIST_WORKER']}" if os.environ.get("PYTEST_XDIST_WORKER") else "")
+VAR_DIR = Path(envstr("PHASEWRIGHT_VAR_DIR", str(BASE_DIR / (_TEST_VAR if os.environ.get("PYTEST_VERSION") else "var"))))
 VAR_DIR.mkdir(parents=True, exist_ok=True)
 
 INSTALLED_APPS = [

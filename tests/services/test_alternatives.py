@@ -133,3 +133,22 @@ def test_a_change_still_running_when_the_budget_is_spent_is_dropped(make_part):
     with pytest.raises(alternatives._OutOfTime):
         alternatives._try(part, "orientation", printer, material, "-z", {"min_feature"}, blockers, material,
                           same_frame=False, deadline=time.monotonic() - 1.0)
+
+
+def test_a_change_whose_pace_cannot_end_within_the_budget_stops_early(monkeypatch):
+    """A stage's pace is projected from its progress: 10 % done in 2 s leaves 18 s at that pace, over twice the 8 s
+    the budget still holds, so the change stops now rather than at the deadline; half done in 2 s goes on; and
+    nothing is read from the first 5 % or the first second (a choice of this project: too little is done to read a pace)."""
+    from services import alternatives
+
+    now = [100.0]
+    monkeypatch.setattr(alternatives.time, "monotonic", lambda: now[0])
+    report = alternatives._paced(deadline=110.0)
+    now[0] = 100.5
+    report(0.01)  # too early to read a pace: goes on
+    now[0] = 102.0
+    report(0.5)  # 2 s more at this pace, 8 s left: goes on
+    with pytest.raises(alternatives._OutOfTime):
+        report(0.1)  # 18 s more at this pace, 8 s left
+    assert alternatives._paced(deadline=None) is not None
+    alternatives._paced(deadline=None)(0.1)  # no budget: never stops
