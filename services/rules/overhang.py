@@ -26,7 +26,7 @@ import numpy as np
 from services.findings import Finding, rule_label
 from services.rules import raster
 from services.rules.common import RuleCollector, family_check, fmt_xyz, limit_mm, output, picture, severity_of
-from services.rules.scan import RunView
+from services.rules.scan import RunView, layer_count_dtype
 
 RULE = "overhang"
 FLAT_STEPS = 4.0  # a region reaching farther than this many self-supporting steps in one layer is a flat start
@@ -131,7 +131,7 @@ class Collector(RuleCollector):
         if self.missing(printer, "self-supporting angle and severity", self.severity is None or self.reach is None):
             return False
         self.support_mm3 = 0.0
-        self.columns_mm: np.ndarray | None = None  # plan view: empty height under sloped new material
+        self.columns: np.ndarray | None = None  # plan view: empty layers under sloped new material
         self.map: np.ndarray | None = None  # plan view: angle (deg) of the shallowest overhang per pixel
         self.layer_map: np.ndarray | None = None
         return True
@@ -150,8 +150,8 @@ class Collector(RuleCollector):
 
     def _support(self, view: RunView, needs: np.ndarray, r0: int, c0: int) -> None:
         """Add the empty layers under each pixel needing support, down to material or the plate."""
-        top = view.below.top_mm[r0:r0 + needs.shape[0], c0:c0 + needs.shape[1]][needs]
-        self.support_mm3 += float(np.sum(view.z_lo - np.maximum(top, 0.0))) * view.frame.px ** 2
+        top = view.below.top[r0:r0 + needs.shape[0], c0:c0 + needs.shape[1]][needs]  # layers; 0: the plate
+        self.support_mm3 += float(np.sum(view.first - top.astype(np.int64))) * view.frame.dz * view.frame.px ** 2
 
     def _keep_columns(self, view: RunView, new: np.ndarray, r0: int, c0: int) -> None:
         """Add, per plan pixel, the empty column under new material on a slope (counted in ``finish``).
@@ -160,16 +160,16 @@ class Collector(RuleCollector):
         alone; the support goes under the whole surface, so the columns are kept for every step and
         summed over the surface's plan once it is known.
         """
-        if self.columns_mm is None:
-            self.columns_mm = np.zeros(view.mask.shape, np.float32)
-        box = self.columns_mm[r0:r0 + new.shape[0], c0:c0 + new.shape[1]]
-        top = view.below.top_mm[r0:r0 + new.shape[0], c0:c0 + new.shape[1]][new]
-        box[new] += np.float32(view.z_lo) - np.maximum(top, np.float32(0.0))
+        if self.columns is None:  # whole layers: a column's empty spans add up to at most the stack's height
+            self.columns = np.zeros(view.mask.shape, layer_count_dtype(view.frame))
+        box = self.columns[r0:r0 + new.shape[0], c0:c0 + new.shape[1]]
+        top = view.below.top[r0:r0 + new.shape[0], c0:c0 + new.shape[1]][new]
+        box[new] += (view.first - top).astype(box.dtype)
 
     def _record(self, view: RunView, surface: np.ndarray, angle: np.ndarray, r0: int, c0: int) -> None:
         if self.map is None:
             self.map = np.full(view.mask.shape, np.inf, np.float32)
-            self.layer_map = np.zeros(view.mask.shape, np.int32)
+            self.layer_map = np.zeros(view.mask.shape, layer_count_dtype(view.frame))
         rows, cols = raster.coords(surface)
         a = angle[rows, cols]
         rows, cols = rows + r0, cols + c0
@@ -189,7 +189,7 @@ class Collector(RuleCollector):
         # in plan: bridge them before counting surfaces and their supports.
         bridged = raster.dilate_disk(where_any, 2 * int(math.ceil(self.reach + 1)) + 1)
         count, labels = raster.label(bridged, 8)
-        self.support_mm3 += float(self.columns_mm[bridged].sum(dtype=np.float64)) * frame.px ** 2
+        self.support_mm3 += float(self.columns[bridged].sum(dtype=np.float64)) * frame.dz * frame.px ** 2
         summary["support_volume_mm3"] = round(self.support_mm3, 3)
         area_mm2 = float(where_any.sum()) * frame.px ** 2
         summary["overhang_area_mm2"] = round(area_mm2, 3)

@@ -68,6 +68,7 @@ def _run(stack, part, printer, families: dict[str, Callable], progress=None) -> 
                 below.update(view)
             if prev is not None:
                 prev.forget()
+            view.keep_for_next()
             prev = view
             if progress is not None and (view.last + 1) / stack.count - reported >= 1 / 32:
                 reported = (view.last + 1) / stack.count
@@ -128,43 +129,52 @@ class Frame:
         return round(float(x), 4), round(float(y), 4), round(float(self.z_mm(k)), 4)
 
 
+def layer_count_dtype(frame: Frame) -> np.dtype:
+    """Return the smallest unsigned type that holds any layer count of the stack, with one value to spare."""
+    return np.min_scalar_type(frame.stack.count + 1)
+
+
 class BelowTop:
-    """Per pixel column, the top (mm) of the last solid met so far going up; -1 where none yet."""
+    """Per pixel column, the top of the last solid met so far going up, in layers over the stack's base (the
+    layer just above that solid); 0 where none yet. Whole layers, so the map is exact in the smallest type."""
 
     def __init__(self, frame: Frame) -> None:
-        self.top_mm = np.full((frame.ny, frame.nx), -1.0, np.float32)
+        self.top = np.zeros((frame.ny, frame.nx), layer_count_dtype(frame))
 
     def update(self, view: RunView) -> None:
         rs, cs = view.window
-        np.copyto(self.top_mm[rs, cs], np.float32(view.z_hi), where=view.mask[rs, cs])
+        np.copyto(self.top[rs, cs], view.last + 1, where=view.mask[rs, cs])
 
 
 class Bounded:
     """Void with solid below and above it in the same pixel column: the lowest such gap's height and base.
 
-    Kept per column (a 2-D map), so gaps stacked over one another in one column keep only the
-    smallest: the one most likely to close.
+    Kept per column (a 2-D map, in whole layers), so gaps stacked over one another in one column keep only
+    the smallest: the one most likely to close.
     """
 
     def __init__(self, frame: Frame) -> None:
-        self.height_mm = np.full((frame.ny, frame.nx), np.inf, np.float32)
-        self.base_mm = np.zeros((frame.ny, frame.nx), np.float32)
+        dtype = layer_count_dtype(frame)
+        self.dz = frame.dz
+        self.none = np.iinfo(dtype).max  # no roofed gap in this column
+        self.height = np.full((frame.ny, frame.nx), self.none, dtype)
+        self.base = np.zeros((frame.ny, frame.nx), dtype)
         self._instances = None
 
     def update(self, view: RunView, below: BelowTop) -> None:
         if view.prev is None:
             return
         rs, cs = view.window
-        roof = view.new[rs, cs] & (below.top_mm[rs, cs] >= 0)
+        roof = view.new[rs, cs] & (below.top[rs, cs] > 0)
         if not roof.any():
             return
-        base = below.top_mm[rs, cs][roof]
-        gap = np.float32(view.z_lo) - base
+        base = below.top[rs, cs][roof]
+        gap = (view.first - base).astype(base.dtype)  # the solid below ends under this run: never negative
         rows, cols = np.nonzero(roof)
         rows, cols = rows + rs.start, cols + cs.start
-        better = gap < self.height_mm[rows, cols]
-        self.height_mm[rows[better], cols[better]] = gap[better]
-        self.base_mm[rows[better], cols[better]] = base[better]
+        better = gap < self.height[rows, cols]
+        self.height[rows[better], cols[better]] = gap[better]
+        self.base[rows[better], cols[better]] = base[better]
 
     def instances(self) -> dict[str, np.ndarray]:
         """Return each roofed void (2-D footprint): tallest height, footprint width, where, base."""
@@ -173,13 +183,13 @@ class Bounded:
         return self._instances
 
     def _measure(self) -> dict[str, np.ndarray]:
-        footprint = np.isfinite(self.height_mm)
+        footprint = self.height != self.none
         count, labels = raster.label(footprint, 8)
-        height, at = raster.per_label_max(np.where(footprint, self.height_mm, 0), labels, count, footprint)
+        height, at = raster.per_label_max(np.where(footprint, self.height, 0), labels, count, footprint)
         dist = cv2.distanceTransform(footprint.view(np.uint8), cv2.DIST_L2, 5)
         deep, _ = raster.per_label_max(dist, labels, count, footprint)
-        return {"labels": labels, "height_mm": height[1:], "at": at[1:], "width_px": 2 * deep[1:] - 1,
-                "base_mm": self.base_mm.ravel()[at[1:]]}
+        return {"labels": labels, "height_mm": height[1:] * self.dz, "at": at[1:], "width_px": 2 * deep[1:] - 1,
+                "base_mm": self.base.ravel()[at[1:]] * self.dz}
 
 
 class RunView:
@@ -204,9 +214,21 @@ class RunView:
     def layers(self) -> int:
         return self.last - self.first + 1
 
+    _PLAIN = frozenset(("frame", "index", "first", "last", "mask", "prev", "below", "z_lo", "z_hi"))
+    # What the next run reads of this one (links, new material, pockets): kept once the families are done here.
+    KEPT_FOR_NEXT = ("window", "solid_in_window", "void", "enclosed", "void_area", "enclosed_index", "enclosed_labels")
+
     def forget(self) -> None:
         """Drop what only the next run needed (its previous run's rasters)."""
         self.prev = None
+
+    def keep_for_next(self) -> None:
+        """Drop every raster made for this run that the next run does not read (distance maps, widths, framed
+        copies, links to the run before): on a wide part each is a frame-sized array held one run longer."""
+        for name in [n for n in self.__dict__ if n not in RunView._PLAIN and n not in self.KEPT_FOR_NEXT]:
+            if name == "_void_in_window" and not {"void", "enclosed"} <= self.__dict__.keys():
+                continue  # still the source of what the next run reads
+            del self.__dict__[name]
 
     @cached_property
     def window(self) -> tuple[slice, slice]:
@@ -230,7 +252,10 @@ class RunView:
         return np.where(flat >= 0, (rs.start + step * rows) * self.mask.shape[1] + cs.start + step * cols, -1)
 
     def _framed(self, inner: np.ndarray, fill=0) -> np.ndarray:
-        """Return a frame-sized array holding ``inner`` in the window and ``fill`` elsewhere."""
+        """Return a frame-sized array holding ``inner`` in the window and ``fill`` elsewhere (``inner`` itself when
+        the window is the whole frame, as under a lens's widest layers: no copy, never written to)."""
+        if inner.shape == self.mask.shape:
+            return inner
         out = np.full(self.mask.shape, fill, inner.dtype) if fill else np.zeros(self.mask.shape, inner.dtype)
         out[self.window] = inner
         return out
@@ -345,8 +370,10 @@ class RunView:
 
     @cached_property
     def enclosed_index(self) -> np.ndarray:
-        """Return the flat indices of the enclosed void pixels."""
-        return np.flatnonzero(self.enclosed.ravel())
+        """Return the flat indices of the enclosed void pixels (int32 below 2**31 pixels: half the memory on a
+        part whose layers enclose wide grooves)."""
+        index = np.flatnonzero(self.enclosed.ravel())
+        return index.astype(np.int32) if self.mask.size < 2 ** 31 else index
 
     @cached_property
     def enclosed_labels(self) -> np.ndarray:
