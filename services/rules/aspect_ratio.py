@@ -24,7 +24,7 @@ import numpy as np
 from services.findings import INSTANCES_SHOWN, Finding, instance_rows, rule_label
 from services.rules import RuleOutput
 from services.rules.common import RuleCollector, family_check, fmt_xyz, output, picture
-from services.rules.scan import RunView, refine_width
+from services.rules.scan import RunView, refine_widths
 
 RULE = "aspect_ratio"
 
@@ -147,9 +147,8 @@ def _refine(frame, sections, idx: np.ndarray) -> None:
     """Replace the widths of the given sections by the 2x-refined width, unpacking each layer once."""
     for k in np.unique(sections.first[idx]).tolist():
         view = RunView(frame, -1, k, k, frame.layer(k), None, None)
-        layer = view.filled
-        for i in idx[sections.first[idx] == k].tolist():
-            sections.width[i] = refine_width(layer, int(sections.at[i]), float(sections.width[i]))
+        mine = idx[sections.first[idx] == k]
+        sections.width[mine] = refine_widths(view, sections.at[mine], sections.width[mine])
 
 
 def _track_layers(sections, track: int) -> tuple[int, int]:
