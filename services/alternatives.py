@@ -64,13 +64,16 @@ def what_must_change(*, part: Part, printer: PrinterProfile, material: Material,
                      findings: Sequence[Finding],
                      catalogue: Sequence[tuple[PrinterProfile, Material]] | Callable[[], Sequence] = (),
                      budget_s: float = 60.0, progress: Callable[[float], None] | None = None,
-                     at_once: int = 2) -> list[Alternative]:
+                     at_once: int = 2, unfinished: list[str] | None = None) -> list[Alternative]:
     """Return up to three changes that remove blockers from the part, best first (empty: no blockers to remove).
 
     ``catalogue`` is the lab's (printer, material) pairs to try besides the part's own, or a function returning
     them (called only when something blocks, so a clean part costs no catalogue read); ``budget_s`` bounds the
-    work (candidates are tried cheapest first, and the search stops when the budget is spent); ``at_once``
-    candidates are tried side by side (1 where memory is tight: each holds its own layer stack).
+    work (candidates are tried cheapest first, the search stops when the budget is spent, and a change whose own
+    pace shows it cannot end within the budget stops early, leaving the cores to the others); ``at_once``
+    candidates are tried side by side (1 where memory is tight: each holds its own layer stack). ``unfinished``,
+    when given, receives the sentence of each change not finished within the budget (stopped, or never started),
+    so that a report can say what was left untried rather than let "nothing found" stand for it.
     """
     blockers = [f for f in findings if f.severity == "blocker"]
     # Mesh defects go with the part wherever it is printed: no printer or orientation removes them.
@@ -86,7 +89,9 @@ def what_must_change(*, part: Part, printer: PrinterProfile, material: Material,
 
     deadline = time.monotonic() + budget_s
 
-    def attempt(candidate) -> Alternative | None:
+    stopped = set()
+
+    def attempt(i: int, candidate) -> Alternative | None:
         kind, cand_printer, cand_material, orientation = candidate
         scaled = kind == "scale"
         try:
@@ -94,9 +99,16 @@ def what_must_change(*, part: Part, printer: PrinterProfile, material: Material,
                         orientation, before, blockers, material,
                         same_frame=orientation == settings.orientation and not scaled, factor=factor, deadline=deadline)
         except _OutOfTime:
+            stopped.add(i)
             return None  # not finished within the budget: not shown
 
-    tried = [a for a in _tried_side_by_side(attempt, candidates, deadline, progress, at_once) if a is not None]
+    results = _tried_side_by_side(attempt, candidates, deadline, progress, at_once)
+    if unfinished is not None:
+        freq = (part.parameters or {}).get("freq_ghz")
+        freq = float(freq) if isinstance(freq, int | float) else None
+        unfinished.extend(change_sentence(kind, p, m, o, factor=factor, freq_ghz=freq)
+                          for i, (kind, p, m, o) in enumerate(candidates) if i in stopped or i >= len(results))
+    tried = [a for a in results if a is not None]
     better = [a for a in tried if a.blockers < len(blockers) or a.blockers_removed]
     better.sort(key=lambda a: (a.blockers, a.cautions, a.kind != "orientation", a.cost_one or 0.0))
     return better[:SHOWN]
@@ -104,8 +116,9 @@ def what_must_change(*, part: Part, printer: PrinterProfile, material: Material,
 
 def _tried_side_by_side(attempt: Callable, candidates: list, deadline: float,
                         progress: Callable[[float], None] | None, at_once: int) -> list[Alternative | None]:
-    """Return ``attempt(c)`` for the candidates in order, ``at_once`` at a time (slicing and rules release the GIL
-    in their numpy and OpenCV loops), starting no new one after ``deadline`` (monotonic). Progress stays here."""
+    """Return ``attempt(i, c)`` for the candidates in order, ``at_once`` at a time (slicing and rules release the GIL
+    in their numpy and OpenCV loops), starting no new one after ``deadline`` (monotonic): the list stops at the
+    first candidate never started. Progress stays here."""
     results: dict[int, Alternative | None] = {}
     at_once = max(1, at_once)
     with ThreadPoolExecutor(max_workers=at_once, thread_name_prefix="phasewright-change") as pool:
@@ -113,7 +126,7 @@ def _tried_side_by_side(attempt: Callable, candidates: list, deadline: float,
         while queued or running:
             while queued and len(running) < at_once and time.monotonic() <= deadline:
                 i, candidate = queued.pop(0)
-                running[pool.submit(attempt, candidate)] = i
+                running[pool.submit(attempt, i, candidate)] = i
             if not running:
                 break  # the budget is spent
             done, _ = wait(running, return_when=FIRST_COMPLETED)

@@ -62,6 +62,7 @@ class Report:
     requirements: dict | None = None
     part_view: str | None = None  # the 3D view's JSON (services.part_view), stored as PART_VIEW_FILE
     what_to_change: tuple = ()  # services.alternatives.Alternative, best first (empty when nothing blocks)
+    changes_unfinished: tuple = ()  # sentences of the changes the search's budget left unfinished, in trying order
     target_changes: tuple = ()  # services.target_changes.TargetChange, best first (empty when no target is missed)
 
     def to_dict(self) -> dict:
@@ -83,6 +84,7 @@ class Report:
             "figures": sorted(self.figures),
             "part_view": PART_VIEW_FILE if self.part_view else None,
             "what_to_change": [a.to_dict() for a in self.what_to_change],
+            "changes_unfinished": list(self.changes_unfinished),
             "target_changes": [c.to_dict() for c in self.target_changes],
             "timings_s": self.timings_s,
         }
@@ -127,9 +129,10 @@ def build_report(*, part: Part, printer: PrinterProfile, material: Material,
     figures.update(overview)
     # The alternatives re-run the printability checks only, so only printability blockers go in.
     printability = [f for f in findings if f.rule not in NOT_PRINTABILITY]
+    unfinished: list[str] = []
     to_change = stages.run("alternatives", lambda p: what_must_change(
         part=part, printer=printer, material=material, settings=settings, findings=printability,
-        catalogue=alternatives, progress=p, at_once=2 if concurrent_stages else 1))
+        catalogue=alternatives, progress=p, at_once=2 if concurrent_stages else 1, unfinished=unfinished))
     to_meet = stages.run("target_changes", lambda p: changes_for_targets(
         part=oriented, stack=stack, printer=printer, material=material, settings=settings, targets=targets,
         run_optics=lambda part_, stack_, printer_, material_: _optics(
@@ -142,7 +145,7 @@ def build_report(*, part: Part, printer: PrinterProfile, material: Material,
         cautions=tuple(cautions_for(printer.process)), timings_s=stages.timings_s,
         figures=figures, touchstone=optics.touchstone if optics else None, part_view=view,
         meets_requirements=targets.meets, requirements=targets.to_dict() if settings.requirements else None,
-        what_to_change=tuple(to_change), target_changes=tuple(to_meet),
+        what_to_change=tuple(to_change), changes_unfinished=tuple(unfinished), target_changes=tuple(to_meet),
     )
 
 

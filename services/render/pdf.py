@@ -75,7 +75,7 @@ def report_pdf(report: dict, figures: Mapping[str, bytes], *, checked_at: dateti
     _verdict(doc, report)
     _quote(doc, report.get("estimate"))
     _findings(doc, report.get("findings") or [], figures)
-    _what_to_change(doc, report.get("what_to_change") or [])
+    _what_to_change(doc, report.get("what_to_change") or [], report.get("changes_unfinished") or [])
     _target_changes(doc, report.get("target_changes") or [])
     _views(doc, figures)
     _optics(doc, report.get("optics"), figures)
@@ -218,8 +218,9 @@ def _findings(doc: _Document, findings: list[dict], figures: Mapping[str, bytes]
         _finding(doc, number, finding, picture, height)
 
 
-def _what_to_change(doc: _Document, alternatives: list[dict]) -> None:
-    """List the changes that were tried and remove blockers, with the numbers they gave."""
+def _what_to_change(doc: _Document, alternatives: list[dict], unfinished: list[str]) -> None:
+    """List the changes that were tried and remove blockers, with the numbers they gave, and those the search's
+    time left unfinished."""
     lines = []
     for a in alternatives:
         removed = ", ".join(rule_label(r) for r in a.get("blockers_removed", [])) or "none"
@@ -228,6 +229,11 @@ def _what_to_change(doc: _Document, alternatives: list[dict]) -> None:
                          f"{'' if a['cautions'] == 1 else 's'}; removes {removed}; one part {cost}"))
     _tried_changes(doc, "What would remove the blockers", "Each change was tried: the part sliced again at that "
                    "printer's grid and every design rule run again (the optics were not re-run).", lines)
+    if unfinished:
+        if not lines:
+            _heading(doc, "What would remove the blockers", room_mm=40)
+        _text(doc, "Not finished within the search's time, so not judged: " + "; ".join(unfinished)
+              + ". Check the part again with that change made to know.", 8.5, colour=MUTED)
 
 
 def _target_changes(doc: _Document, changes: list[dict]) -> None:

@@ -25,6 +25,8 @@ def report_text(r: dict) -> str:
         removed = ", ".join(a["blockers_removed"]) or "nothing"
         left = f"{a['blockers']} blocker{'' if a['blockers'] == 1 else 's'} left"
         lines.append(f"  would remove {removed}: {a['change']} ({left})")
+    if r.get("changes_unfinished"):
+        lines.append(f"  not finished within the search's time (not judged): {'; '.join(r['changes_unfinished'])}")
     for c in r.get("target_changes") or []:
         values = ", ".join(f"{t['label']} {t['value_text']} ({t['status'].replace('_', ' ')})" for t in c["results"])
         lines.append(f"  would meet targets: {c['change']}: {values}")

@@ -152,3 +152,15 @@ def test_a_change_whose_pace_cannot_end_within_the_budget_stops_early(monkeypatc
         report(0.1)  # 18 s more at this pace, 8 s left
     assert alternatives._paced(deadline=None) is not None
     alternatives._paced(deadline=None)(0.1)  # no budget: never stops
+
+
+def test_changes_the_budget_leaves_unfinished_are_named_in_trying_order(make_part):
+    """With the budget spent before any change starts, nothing is found and every change is named as unfinished, in
+    the order it would have been tried (the part's own printer turned over and onto its sides first)."""
+    part = _finned(make_part)
+    printer, material = PRINTERS["bay1-lcd-resin"], MATERIALS["standard-resin"]
+    unfinished: list[str] = []
+    found = what_must_change(part=part, printer=printer, material=material, settings=CheckSettings(),
+                             findings=_blockers(part, printer), budget_s=-1.0, unfinished=unfinished)
+    assert found == []
+    assert unfinished[:3] == [f"build it along {axis} on the same printer" for axis in ("-z", "+x", "+y")]

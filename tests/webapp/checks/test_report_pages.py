@@ -277,6 +277,26 @@ def test_the_changes_that_meet_missed_targets_show_on_the_page_and_in_the_pdf(al
     assert "What would meet the missed targets" in text and "insertion loss 0.0625 dB" in text
 
 
+def test_changes_the_search_left_unfinished_are_named_on_the_page_in_the_pdf_and_in_text(alice_client, alice,
+                                                                                           finned_report, make_done_check):
+    """A change stopped by the search's time is named as not judged, so "nothing found" never stands for "not tried"."""
+    from services.render.text import report_text
+
+    unfinished = ("build it along +x on the same printer", "build it along +y on the same printer")
+    report = replace(finned_report, what_to_change=(), changes_unfinished=unfinished)
+    check = make_done_check(alice, report)
+    page = alice_client.get(reverse("check", args=[check.public_id])).content.decode()
+    section = page[page.index('id="what-to-change"'):page.index("</section>", page.index('id="what-to-change"'))]
+    assert "None of the changes finished within the search" in section
+    assert "so not judged: build it along +x on the same printer; build it along +y on the same printer." in section
+    pdf = alice_client.get(reverse("check_pdf", args=[check.public_id]))
+    text = " ".join(p.extract_text() for p in PdfReader(io.BytesIO(b"".join(pdf.streaming_content)
+                                                                    if pdf.streaming else pdf.content)).pages)
+    assert "What would remove the blockers" in text and "build it along +y on the same printer" in " ".join(text.split())
+    lines = report_text(report.to_dict())
+    assert "not finished within the search's time (not judged): build it along +x" in lines
+
+
 def test_instances_show_on_the_page_and_in_the_csv(alice_client, make_done_check, alice, make_report_with_instances):
     """A grouped finding's instances: a table on the page with a "show" link per row, every one in the CSV
     download (RFC 4180 rows, read back with Python's csv module)."""
