@@ -128,6 +128,15 @@ class LayerStack:
         for first, last in zip(starts.tolist(), lasts.tolist()):
             yield first, last, self._unpack(int(self._index[first]))
 
+    def run_boxes(self) -> Iterator[tuple[int, int, tuple[int, int], np.ndarray]]:
+        """Yield (first, last inclusive, (row0, col0), mask) for each run, the mask cut to the run's solid box
+        (outside it the layer is empty): for work that need not touch the whole frame."""
+        starts = np.flatnonzero(np.diff(self._index, prepend=-1))
+        lasts = np.append(starts[1:], self.count) - 1
+        for first, last in zip(starts.tolist(), lasts.tolist()):
+            corner, box = self._unpack_box(int(self._index[first]))
+            yield first, last, corner, box
+
     @property
     def distinct_count(self) -> int:
         return len(self._packed)
@@ -190,12 +199,17 @@ class LayerStack:
 
     def _unpack(self, d: int) -> np.ndarray:
         out = np.zeros(self.shape, dtype=bool)
+        (r0, c0), box = self._unpack_box(d)
+        out[r0:r0 + box.shape[0], c0:c0 + box.shape[1]] = box
+        return out
+
+    def _unpack_box(self, d: int) -> tuple[tuple[int, int], np.ndarray]:
+        """Return ((row0, col0), bool mask) of distinct layer d's solid box."""
         r0, b0, rows, row_bytes = (int(v) for v in self._boxes[d])
         box = np.frombuffer(zlib.decompress(self._packed[d]), dtype=np.uint8).reshape(rows, row_bytes)
         c0 = 8 * b0
         width = min(8 * box.shape[1], self.shape[1] - c0)
-        out[r0:r0 + len(box), c0:c0 + width] = np.unpackbits(box, axis=1, count=width).view(bool)
-        return out
+        return (r0, c0), np.unpackbits(box, axis=1, count=width).view(bool)
 
 
 def _check_grid_sizes(pixel_mm: float, layer_height_mm: float) -> None:

@@ -13,7 +13,7 @@ from typing import TYPE_CHECKING
 from services import layers, pictures
 from services.alternatives import what_must_change
 from services.errors import UnusableInput
-from services.findings import NOT_PRINTABILITY, Finding, sorted_by_severity, verdict_of
+from services.findings import Finding, sorted_by_severity, verdict_of
 from services.part import Part
 from services.part_view import PreparedViews, part_view_json, prepare_views
 from services.profiles import Material, PrinterProfile, check_pairing
@@ -127,8 +127,9 @@ def build_report(*, part: Part, printer: PrinterProfile, material: Material,
     overview, view = stages.run("pictures", lambda p: (_overview_pictures(stack, prepared, findings),
                                                        part_view_json(oriented, stack, findings, prepared)))
     figures.update(overview)
-    # The alternatives re-run the printability checks only, so only printability blockers go in.
-    printability = [f for f in findings if f.rule not in NOT_PRINTABILITY]
+    # The alternatives re-run the mesh, build-fit and rule checks only, so only their blockers go in: a change is
+    # never said to remove a blocker it did not check again (the optics' phase error, the targets).
+    printability = [_finite_finding(f) for f in (*part.findings, *fit_findings, *rules.findings)]
     unfinished: list[str] = []
     to_change = stages.run("alternatives", lambda p: what_must_change(
         part=part, printer=printer, material=material, settings=settings, findings=printability,

@@ -31,9 +31,9 @@ def support_columns_mm2(stack: LayerStack) -> np.ndarray:
     ``~L_k & (top > k)``, with ``top`` the highest solid layer of each column.
     """
     out = np.zeros(stack.count, dtype=np.float64)
-    top = np.full(stack.shape, -1, dtype=np.int64)
-    for _, last, mask in stack.runs():
-        top[mask] = last
+    top = np.full(stack.shape, -1, dtype=np.int32 if stack.count < 2 ** 31 else np.int64)
+    for _, last, (r0, c0), box in stack.run_boxes():  # each run's solid box only, not the whole frame
+        np.copyto(top[r0:r0 + box.shape[0], c0:c0 + box.shape[1]], last, where=box)
     solid_layers = np.rint(stack.thickness_mm / stack.layer_height_mm).astype(np.int64)
     # Only columns with fewer solid layers than their top have a gap to fill; often there are none.
     columns = np.flatnonzero((top + 1 > solid_layers).ravel())

@@ -66,8 +66,7 @@ def _run(stack, part, printer, families: dict[str, Callable], progress=None) -> 
                 frame.bounded.update(view, below)
             if below is not None:
                 below.update(view)
-            if prev is not None:
-                prev.forget()
+            view.forget()  # the run before is no longer read: freed now, not a run later
             view.keep_for_next()
             prev = view
             if progress is not None and (view.last + 1) / stack.count - reported >= 1 / 32:
@@ -219,7 +218,7 @@ class RunView:
     KEPT_FOR_NEXT = ("window", "solid_in_window", "void", "enclosed", "void_area", "enclosed_index", "enclosed_labels")
 
     def forget(self) -> None:
-        """Drop what only the next run needed (its previous run's rasters)."""
+        """Drop the link to the run before (its rasters are freed once nothing else holds them)."""
         self.prev = None
 
     def keep_for_next(self) -> None:

@@ -187,3 +187,20 @@ def test_rules_estimate_and_optics_leave_the_stack_and_part_unchanged(lens_with_
     report_module._estimate(stack, part, printer, material, CheckSettings(), rules)
     report_module._optics(part, stack, printer, material, CheckSettings())
     assert digest() == before
+
+
+def test_what_must_change_is_asked_only_of_blockers_its_changes_check_again(lens_with_pillar, monkeypatch):
+    """A tried change re-runs the mesh, build-fit and rule checks, not the optics: a phase-error blocker (made up here
+    through the optics' own finding function) never goes to the search, so no change can be said to remove it."""
+    from services import report as report_module
+    from services.findings import Finding
+    from services.optics import checks
+
+    blocker = Finding("phase_error", "blocker", "made up for this test", measured=0.1, limit=0.5, unit="strehl")
+    monkeypatch.setattr(checks, "phase_error_finding", lambda *args, **kwargs: blocker)
+    asked = []
+    monkeypatch.setattr(report_module, "what_must_change", lambda **kwargs: asked.append(kwargs["findings"]) or [])
+    report = _check(lens_with_pillar)
+    assert blocker in report.findings
+    assert len(asked) == 1 and blocker not in asked[0]
+    assert {f.rule for f in asked[0]} >= {"min_feature", "aspect_ratio"}
