@@ -208,12 +208,12 @@ class RunView:
         self.below = below
         self.z_lo = first * frame.dz
         self.z_hi = (last + 1) * frame.dz
+        self._plain = frozenset((*self.__dict__, "_plain"))  # set here; all else in __dict__ is made on demand
 
     @property
     def layers(self) -> int:
         return self.last - self.first + 1
 
-    _PLAIN = frozenset(("frame", "index", "first", "last", "mask", "prev", "below", "z_lo", "z_hi"))
     # What the next run reads of this one (links, new material, pockets): kept once the families are done here.
     KEPT_FOR_NEXT = ("window", "solid_in_window", "void", "enclosed", "void_area", "enclosed_index", "enclosed_labels")
 
@@ -224,7 +224,7 @@ class RunView:
     def keep_for_next(self) -> None:
         """Drop every raster made for this run that the next run does not read (distance maps, widths, framed
         copies, links to the run before): on a wide part each is a frame-sized array held one run longer."""
-        for name in [n for n in self.__dict__ if n not in RunView._PLAIN and n not in self.KEPT_FOR_NEXT]:
+        for name in [n for n in self.__dict__ if n not in self._plain and n not in self.KEPT_FOR_NEXT]:
             if name == "_void_in_window" and not {"void", "enclosed"} <= self.__dict__.keys():
                 continue  # still the source of what the next run reads
             del self.__dict__[name]
