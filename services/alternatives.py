@@ -104,9 +104,7 @@ def what_must_change(*, part: Part, printer: PrinterProfile, material: Material,
 
     results = _tried_side_by_side(attempt, candidates, deadline, progress, at_once)
     if unfinished is not None:
-        freq = (part.parameters or {}).get("freq_ghz")
-        freq = float(freq) if isinstance(freq, int | float) else None
-        unfinished.extend(change_sentence(kind, p, m, o, factor=factor, freq_ghz=freq)
+        unfinished.extend(change_sentence(kind, p, m, o, factor=factor, freq_ghz=_design_freq_ghz(part))
                           for i, (kind, p, m, o) in enumerate(candidates) if i in stopped or i >= len(results))
     tried = [a for a in results if a is not None]
     better = [a for a in tried if a.blockers < len(blockers) or a.blockers_removed]
@@ -206,6 +204,12 @@ def change_sentence(kind: str, printer, material, orientation: str | None = None
     return f"print it on {printer.name} in {material.name}"
 
 
+def _design_freq_ghz(part: Part) -> float | None:
+    """Return the frequency a generated part was designed for (None for an uploaded mesh)."""
+    freq = (part.parameters or {}).get("freq_ghz")
+    return float(freq) if isinstance(freq, int | float) else None
+
+
 def _one_material_per_printer(candidates):
     """Keep one material per other printer (the design rules depend on the printer, not the material)."""
     kept, seen = [], set()
@@ -260,11 +264,11 @@ def _paced(deadline: float | None) -> Callable[[float], None]:
     margin covers stages whose work is unevenly spread (a lens's middle layers are its widest). A change that
     could not be shown anyway stops early and leaves the cores to the changes that can.
     """
+    if deadline is None:
+        return lambda _fraction: None
     start = time.monotonic()
 
     def report(fraction: float) -> None:
-        if deadline is None:
-            return
         now = time.monotonic()
         if now > deadline:
             raise _OutOfTime
@@ -299,9 +303,7 @@ def _try(part, kind, printer, material, orientation, before, blockers, own_mater
     except UnusableInput:
         estimate = {}
     cost = estimate.get("cost") or {}
-    freq = (part.parameters or {}).get("freq_ghz")
-    change = change_sentence(kind, printer, material, orientation, factor=factor,
-                             freq_ghz=float(freq) if isinstance(freq, int | float) else None)
+    change = change_sentence(kind, printer, material, orientation, factor=factor, freq_ghz=_design_freq_ghz(part))
     notes = []
     if kind == "scale":
         notes.append("a scaled optic works at another frequency: check the scaled design before printing")

@@ -123,19 +123,21 @@ class LayerStack:
 
     def runs(self) -> Iterator[tuple[int, int, np.ndarray]]:
         """Yield (first, last inclusive, mask) for each run of identical consecutive layers, in order."""
-        starts = np.flatnonzero(np.diff(self._index, prepend=-1))
-        lasts = np.append(starts[1:], self.count) - 1
-        for first, last in zip(starts.tolist(), lasts.tolist()):
-            yield first, last, self._unpack(int(self._index[first]))
+        for first, last, d in self._spans():
+            yield first, last, self._unpack(d)
 
     def run_boxes(self) -> Iterator[tuple[int, int, tuple[int, int], np.ndarray]]:
         """Yield (first, last inclusive, (row0, col0), mask) for each run, the mask cut to the run's solid box
         (outside it the layer is empty): for work that need not touch the whole frame."""
+        for first, last, d in self._spans():
+            yield first, last, *self._unpack_box(d)
+
+    def _spans(self) -> Iterator[tuple[int, int, int]]:
+        """Yield (first, last inclusive, distinct raster) for each run of identical consecutive layers."""
         starts = np.flatnonzero(np.diff(self._index, prepend=-1))
         lasts = np.append(starts[1:], self.count) - 1
         for first, last in zip(starts.tolist(), lasts.tolist()):
-            corner, box = self._unpack_box(int(self._index[first]))
-            yield first, last, corner, box
+            yield first, last, int(self._index[first])
 
     @property
     def distinct_count(self) -> int:

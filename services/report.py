@@ -129,10 +129,10 @@ def build_report(*, part: Part, printer: PrinterProfile, material: Material,
     figures.update(overview)
     # The alternatives re-run the mesh, build-fit and rule checks only, so only their blockers go in: a change is
     # never said to remove a blocker it did not check again (the optics' phase error, the targets).
-    printability = [_finite_finding(f) for f in (*part.findings, *fit_findings, *rules.findings)]
+    rechecked = [_finite_finding(f) for f in (*part.findings, *fit_findings, *rules.findings)]
     unfinished: list[str] = []
     to_change = stages.run("alternatives", lambda p: what_must_change(
-        part=part, printer=printer, material=material, settings=settings, findings=printability,
+        part=part, printer=printer, material=material, settings=settings, findings=rechecked,
         catalogue=alternatives, progress=p, at_once=2 if concurrent_stages else 1, unfinished=unfinished))
     to_meet = stages.run("target_changes", lambda p: changes_for_targets(
         part=oriented, stack=stack, printer=printer, material=material, settings=settings, targets=targets,

@@ -230,8 +230,9 @@ def _what_to_change(doc: _Document, alternatives: list[dict], unfinished: list[s
     _tried_changes(doc, "What would remove the blockers", "Each change was tried: the part sliced again at that "
                    "printer's grid and every design rule run again (the optics were not re-run).", lines)
     if unfinished:
-        if not lines:
+        if not lines:  # as on the page: the section stands, saying that nothing finished removes a blocker
             _heading(doc, "What would remove the blockers", room_mm=40)
+            _text(doc, "None of the changes finished within the search's time removes a blocker.")
         _text(doc, "Not finished within the search's time, so not judged: " + "; ".join(unfinished)
               + ". Check the part again with that change made to know.", 8.5, colour=MUTED)
 
