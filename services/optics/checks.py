@@ -5,6 +5,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+from scipy import fft as scipy_fft
 
 from services.findings import Finding
 
@@ -55,40 +56,73 @@ def detect_period_mm(mask: np.ndarray, pixel_mm: float, max_period_mm: float) ->
 
     The peak must lie below ``max_period_mm``, above three periods across the pattern, and carry
     at least MIN_PEAK_SHARE of the pattern's AC power (3 x 3 bins, so an off-bin peak still counts).
+    The raster is real, so its power spectrum is symmetric (P(-f) = P(f)): the half that ``rfft2`` gives,
+    in single precision, holds every peak, at a quarter of the memory of the full double one (a 100 mm
+    part at 25 um: 0.85 GB before).
     """
     rows, cols = np.flatnonzero(mask.any(axis=1)), np.flatnonzero(mask.any(axis=0))
     if len(rows) < 8 or len(cols) < 8:
         return None
     crop = mask[rows[0]:rows[-1] + 1, cols[0]:cols[-1] + 1].astype(np.float32)
-    crop -= crop.mean()
-    power = np.abs(np.fft.fft2(crop)) ** 2
-    total = power.sum()
+    crop -= crop.mean(dtype=np.float64)
+    ny, nx = crop.shape
+    spectrum = scipy_fft.rfft2(crop)
+    del crop
+    power = np.square(spectrum.real)
+    power += np.square(spectrum.imag)
+    del spectrum
+    half = power.shape[1]
+    twice = np.full(half, 2.0)  # each column but f = 0 (and Nyquist, for an even width) stands for +f and -f
+    twice[0] = 1.0
+    if nx % 2 == 0:
+        twice[-1] = 1.0
+    total = float(power.sum(axis=0, dtype=np.float64) @ twice)
     if total <= 0:
         return None
-    fy = np.fft.fftfreq(crop.shape[0], d=pixel_mm)[:, None]
-    fx = np.fft.fftfreq(crop.shape[1], d=pixel_mm)[None, :]
-    f = np.hypot(fx, fy)
-    extent = pixel_mm * max(crop.shape)
-    allowed = (f >= 1.0 / max_period_mm) & (f >= 3.0 / extent)
+    fy = np.fft.fftfreq(ny, d=pixel_mm).astype(np.float32)[:, None]
+    fx = np.fft.rfftfreq(nx, d=pixel_mm).astype(np.float32)[None, :]
+    extent = pixel_mm * max(ny, nx)
+    f_min = max(1.0 / max_period_mm, 3.0 / extent)
+    allowed = fx * fx + fy * fy >= np.float32(f_min * f_min)
     if not allowed.any():
         return None
-    local = sum(np.roll(power, (dy, dx), axis=(0, 1)) for dy in (-1, 0, 1) for dx in (-1, 0, 1))
-    candidate = np.where(allowed, local, -1.0)
+    framed = _mirror_framed(power, nx)
+    local = np.zeros_like(power)
+    for dx in (-1, 0, 1):
+        columns = framed[:, 1 + dx:1 + dx + half]
+        local += columns
+        local += np.roll(columns, 1, axis=0)
+        local += np.roll(columns, -1, axis=0)
+    candidate = np.where(allowed, local, np.float32(-1.0))
+    del local, allowed
     k = np.unravel_index(int(np.argmax(candidate)), power.shape)
     if candidate[k] < MIN_PEAK_SHARE * total:
         return None
-    return float(1.0 / _centroid_frequency(power, fx, fy, k))
+    return float(1.0 / _centroid_frequency(framed, pixel_mm, (ny, nx), k))
 
 
-def _centroid_frequency(power: np.ndarray, fx: np.ndarray, fy: np.ndarray, k: tuple) -> float:
+def _mirror_framed(power: np.ndarray, nx: int) -> np.ndarray:
+    """Return the half spectrum with one column more on each side: the bins at -1 and at one past the last,
+    read from their mirror images (P(fy, -fx) = P(-fy, fx)), so 3 x 3 sums need no wrap along x."""
+    ny, half = power.shape
+    flip = np.r_[0, ny - 1:0:-1]  # row of -fy
+    framed = np.empty((ny, half + 2), power.dtype)
+    framed[:, 1:-1] = power
+    framed[:, 0] = power[flip, 1] if half > 1 else power[:, 0]
+    past = nx - half  # the bin one past the last, as a non-negative one: -(nx - half) + nx
+    framed[:, -1] = power[flip, past] if 0 <= past < half else 0.0
+    return framed
+
+
+def _centroid_frequency(framed: np.ndarray, pixel_mm: float, shape: tuple[int, int], k: tuple) -> float:
     """Return |f| of the power centroid of the 3 x 3 bins around peak k (finer than one bin)."""
-    ny, nx = power.shape
+    ny, nx = shape
     rows = [(k[0] + d) % ny for d in (-1, 0, 1)]
-    cols = [(k[1] + d) % nx for d in (-1, 0, 1)]
-    p = power[np.ix_(rows, cols)]
-    # Unwrapped neighbour frequencies: the peak's own frequency plus +-1 bin.
-    gx = fx[0, k[1]] + np.array([-1, 0, 1]) * (fx[0, 1] - fx[0, 0])
-    gy = fy[k[0], 0] + np.array([-1, 0, 1]) * (fy[1, 0] - fy[0, 0])
+    p = framed[np.ix_(rows, [k[1], k[1] + 1, k[1] + 2])].astype(np.float64)
+    # Unwrapped neighbour frequencies: the peak's own frequency plus -1, 0, +1 bin.
+    fy0 = np.fft.fftfreq(ny, d=pixel_mm)[k[0]]
+    gx = (k[1] + np.array([-1, 0, 1])) / (nx * pixel_mm)
+    gy = fy0 + np.array([-1, 0, 1]) / (ny * pixel_mm)
     return float(np.hypot((p.sum(axis=0) * gx).sum() / p.sum(), (p.sum(axis=1) * gy).sum() / p.sum()))
 
 

@@ -94,6 +94,42 @@ def test_it_detects_a_pillar_lattice_period_and_ignores_a_disc():
     assert detect_period_mm(disc, 0.05, 4.5) is None
 
 
+@pytest.mark.parametrize("shape", [(600, 600), (601, 437), (437, 601)])
+@pytest.mark.parametrize("along", ["x", "y", "diagonal"])
+def test_a_grating_period_is_found_along_either_axis_on_odd_and_even_grids(shape, along):
+    """Bars 14 pixels apart (0.70 mm at 0.05 mm) in any direction, on grids of odd and even sides.
+
+    The check reads only half of the (symmetric) power spectrum; a grating along y puts its peak in the half's
+    first column, whose neighbours lie in the other half. Expected: the construction's own period (along the
+    diagonal, 14 px / sqrt(2) apart along the normal), and the full-spectrum double-precision search that
+    numpy's ``fft2`` gives on the same raster, which the check replaced: within 1 %, under half a bin (2.4 % here;
+    an off-bin peak's two middle bins can tie, and single precision may then centre the 3 x 3 sum on the other).
+    """
+    rows, cols = np.mgrid[0:shape[0], 0:shape[1]]
+    coordinate = {"x": cols, "y": rows, "diagonal": rows + cols}[along]
+    bars = (coordinate // 7) % 2 == 0
+    period = detect_period_mm(bars, 0.05, 4.5)
+    expected = 0.70 / (np.sqrt(2) if along == "diagonal" else 1.0)
+    assert period == pytest.approx(expected, rel=0.02)
+    assert period == pytest.approx(_full_spectrum_period_mm(bars, 0.05, 4.5), rel=0.01)
+
+
+def _full_spectrum_period_mm(mask, pixel_mm, max_period_mm):
+    """The strongest 3 x 3 peak of the full power spectrum (numpy fft2, float64) and its centroid's period."""
+    crop = mask.astype(np.float64) - mask.mean()
+    power = np.abs(np.fft.fft2(crop)) ** 2
+    fy, fx = np.fft.fftfreq(crop.shape[0], pixel_mm)[:, None], np.fft.fftfreq(crop.shape[1], pixel_mm)[None, :]
+    f_min = max(1 / max_period_mm, 3 / (pixel_mm * max(crop.shape)))
+    local = sum(np.roll(power, (dy, dx), axis=(0, 1)) for dy in (-1, 0, 1) for dx in (-1, 0, 1))
+    k = np.unravel_index(np.argmax(np.where(np.hypot(fx, fy) >= f_min, local, -1.0)), power.shape)
+    rows = [(k[0] + d) % power.shape[0] for d in (-1, 0, 1)]
+    cols = [(k[1] + d) % power.shape[1] for d in (-1, 0, 1)]
+    p = power[np.ix_(rows, cols)]
+    gx = fx[0, k[1]] + np.array([-1, 0, 1]) * (fx[0, 1] - fx[0, 0])
+    gy = fy[k[0], 0] + np.array([-1, 0, 1]) * (fy[1, 0] - fy[0, 0])
+    return 1 / np.hypot((p.sum(axis=0) * gx).sum() / p.sum(), (p.sum(axis=1) * gy).sum() / p.sum())
+
+
 def test_the_report_cautions_a_diffracting_declared_period(lens):
     """A parametric part declaring period_mm = 2.5 at 100 GHz gets a period caution with the safe period."""
     declared = replace(lens, parameters={"period_mm": 2.5})
