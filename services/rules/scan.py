@@ -262,7 +262,7 @@ class RunView:
     @cached_property
     def solid_in_window(self) -> tuple[int, np.ndarray]:
         """Return ``solid`` on the window alone: (count, labels), labels[r, c] at frame pixel (r0 + r, c0 + c)."""
-        return raster.label(self.filled[self.window], 8)
+        return raster.label(self.filled[self.window], 8, compact=True)
 
     @cached_property
     def solid(self) -> tuple[int, np.ndarray]:
@@ -345,7 +345,7 @@ class RunView:
 
     @cached_property
     def _void_in_window(self) -> tuple[int, np.ndarray]:
-        return raster.label(~self.mask[self.window], 4)
+        return raster.label(~self.mask[self.window], 4, compact=True)
 
     @cached_property
     def void(self) -> tuple[int, np.ndarray, np.ndarray]:

@@ -38,26 +38,39 @@ def clamp_box(shape: tuple[int, int], row: int, col: int, before: int, after: in
     return r0, max(r1, r0 + 1), c0, max(c1, c0 + 1)
 
 
+NORMAL_TILE_PX = 512  # the gradient is filtered per tile holding points: memory bounded by a tile, not the frame
+
+
 def edge_normals(mask: np.ndarray, rows: np.ndarray, cols: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Return (uy, ux): the unit gradient of the Gaussian-smoothed mask at the given pixels (towards material).
 
-    Filtered over the points' bounding box only (two separable passes); beyond the array is void.
-    Where the gradient vanishes (a pixel inside a symmetric neighbourhood) both come back 0.
+    Filtered only over the tiles that hold points, each grown by the filter's reach (two separable passes);
+    beyond the array is void. Where the gradient vanishes (a pixel inside a symmetric neighbourhood) both come
+    back 0. A point's value reads only its own reach, so tiles give what one filter over the points' whole box
+    gave, bit for bit once each tile starts a multiple of 64 columns from where the box would (OpenCV's vector
+    lanes then sum in the same order; off that grid values differ by about 1e-8), with the working set of a
+    tile: on a 100 mm lens at 25 um the box's float copy and two gradients took 156 MB.
     """
     if rows.size == 0:
         return np.zeros(0), np.zeros(0)
     ny, nx = mask.shape
-    r0, r1 = max(int(rows.min()) - _REACH, 0), min(int(rows.max()) + _REACH + 1, ny)
-    c0, c1 = max(int(cols.min()) - _REACH, 0), min(int(cols.max()) + _REACH + 1, nx)
-    crop = mask[r0:r1, c0:c1].astype(np.float32)
     d = np.arange(-_REACH, _REACH + 1, dtype=np.float64)
     g = np.exp(-0.5 * (d / SIGMA_PX) ** 2)
     g /= g.sum()
     dg = d / SIGMA_PX ** 2 * g  # derivative of the Gaussian, as a correlation: a smoothed central difference
     g, dg = g.astype(np.float32), dg.astype(np.float32)
-    grad_y = cv2.sepFilter2D(crop, cv2.CV_32F, g, dg, borderType=cv2.BORDER_CONSTANT)
-    grad_x = cv2.sepFilter2D(crop, cv2.CV_32F, dg, g, borderType=cv2.BORDER_CONSTANT)
-    gy, gx = grad_y[rows - r0, cols - c0].astype(np.float64), grad_x[rows - r0, cols - c0].astype(np.float64)
+    gy, gx = np.zeros(rows.size), np.zeros(rows.size)
+    tile = (rows // NORMAL_TILE_PX) * (-(-nx // NORMAL_TILE_PX)) + cols // NORMAL_TILE_PX
+    order = np.argsort(tile, kind="stable")
+    starts = np.flatnonzero(np.r_[True, tile[order][1:] != tile[order][:-1]])
+    base = max(int(cols.min()) - _REACH, 0)  # where the whole box would start
+    for group in np.split(order, starts[1:]):
+        r, c = rows[group], cols[group]
+        r0, r1 = max(int(r.min()) - _REACH, 0), min(int(r.max()) + _REACH + 1, ny)
+        c0, c1 = base + (max(int(c.min()) - _REACH, base) - base) // 64 * 64, min(int(c.max()) + _REACH + 1, nx)
+        crop = mask[r0:r1, c0:c1].astype(np.float32)
+        gy[group] = cv2.sepFilter2D(crop, cv2.CV_32F, g, dg, borderType=cv2.BORDER_CONSTANT)[r - r0, c - c0]
+        gx[group] = cv2.sepFilter2D(crop, cv2.CV_32F, dg, g, borderType=cv2.BORDER_CONSTANT)[r - r0, c - c0]
     norm = np.hypot(gy, gx)
     ok = norm > 1e-6
     uy, ux = np.zeros(rows.size), np.zeros(rows.size)

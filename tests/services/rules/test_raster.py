@@ -39,3 +39,35 @@ def test_a_disk_spans_its_diameter_and_fits_walls_as_wide(diameter):
         mask = np.zeros((60, 60), bool)
         mask[5:55, 20:20 + width] = True
         assert raster.open_disk(mask, diameter)[30, 20:20 + width].all() == (width >= diameter)
+
+
+@pytest.mark.parametrize("connectivity", [4, 8])
+def test_compact_labels_match_scipy_and_fall_back_to_32_bits_past_65535_sections(connectivity):
+    """A compact labelling holds the same partition as scipy.ndimage.label (same count, one-to-one labels), in
+    16 bits when it fits; 90,000 separate dots do not fit, and come back in 32 bits, all counted."""
+    rng = np.random.default_rng(7)
+    sparse = ndimage.binary_opening(rng.random((300, 400)) < 0.6, np.ones((2, 2)))
+    dots = np.zeros((600, 600), bool)
+    dots[::2, ::2] = True  # 90,000 sections, 8- or 4-connected alike
+    st = np.ones((3, 3), bool) if connectivity == 8 else None
+    for mask, dtype in ((sparse, np.uint16), (dots, np.int32)):
+        count, labels = raster.label(mask, connectivity, compact=True)
+        ref, n_ref = ndimage.label(mask, structure=st)
+        assert labels.dtype == dtype and count == n_ref + 1
+        pairs = np.unique(np.column_stack([labels[mask], ref[mask]]), axis=0)
+        assert len(pairs) == n_ref and (labels[~mask] == 0).all()
+
+
+def test_void_index_maps_opencv_pixel_numbers_band_by_band():
+    """OpenCV numbers a distance transform's void pixels from 1 in row-major order (its DIST_LABEL_PIXEL
+    documentation); the numbers of the nearest void pixels map to where those pixels are, over many row bands."""
+    rng = np.random.default_rng(5)
+    mask = rng.random((3 * raster.VOID_INDEX_ROWS + 17, 301)) < 0.8
+    mask[:, :2] = False
+    _, numbers = raster.nearest_void(mask)
+    flat = raster.void_index(mask, numbers[mask])
+    rows, cols = np.divmod(flat, mask.shape[1])
+    assert not mask[rows, cols].any()  # every one is a void pixel...
+    dist = ndimage.distance_transform_edt(mask)[mask]
+    found = np.hypot(rows - np.nonzero(mask)[0], cols - np.nonzero(mask)[1])
+    assert np.abs(found - dist).max() < 0.1  # ...and the nearest (scipy's exact distance; OpenCV's 5x5 mask is near)

@@ -96,3 +96,28 @@ def test_more_lines_than_opencv_remaps_at_once_and_a_wall_wider_than_it_reads():
     width = thin._edge_to_edge(mask, vy, vx, np.ones(vx.size), np.zeros(vx.size), 6)
     assert width.shape == (39_980,)
     np.testing.assert_allclose(width, 5.0, atol=0.25)
+
+
+def test_edge_normals_across_tiles_match_scipy_filtering_the_whole_mask():
+    """Points spread over many filter tiles get the normals of one Gaussian-derivative filter over the whole mask
+    (scipy.ndimage.correlate1d in double precision, void beyond the edge), to single precision."""
+    from scipy import ndimage
+
+    rng = np.random.default_rng(11)
+    mask = ndimage.binary_opening(rng.random((1300, 1700)) < 0.55, np.ones((3, 3)))
+    rows, cols = np.nonzero(mask ^ ndimage.binary_erosion(mask))
+    pick = rng.choice(rows.size, 20000, replace=False)
+    rows, cols = rows[pick], cols[pick]
+    d = np.arange(-thin._REACH, thin._REACH + 1, dtype=np.float64)
+    g = np.exp(-0.5 * (d / thin.SIGMA_PX) ** 2)
+    g /= g.sum()
+    dg = d / thin.SIGMA_PX ** 2 * g
+    image = mask.astype(np.float64)
+    gy = ndimage.correlate1d(ndimage.correlate1d(image, g, axis=1, mode="constant"), dg, axis=0, mode="constant")
+    gx = ndimage.correlate1d(ndimage.correlate1d(image, dg, axis=1, mode="constant"), g, axis=0, mode="constant")
+    gy, gx = gy[rows, cols], gx[rows, cols]
+    norm = np.hypot(gy, gx)
+    ok = norm > 1e-3
+    uy, ux = thin.edge_normals(mask, rows, cols)
+    assert ok.mean() > 0.95 and np.ptp(rows) > 2 * thin.NORMAL_TILE_PX and np.ptp(cols) > 2 * thin.NORMAL_TILE_PX
+    assert np.allclose(uy[ok], gy[ok] / norm[ok], atol=1e-5) and np.allclose(ux[ok], gx[ok] / norm[ok], atol=1e-5)
