@@ -132,6 +132,13 @@ class LayerStack:
         for first, last, d in self._spans():
             yield first, last, *self._unpack_box(d)
 
+    def run_box_px(self) -> np.ndarray:
+        """Return the pixel area of each run's solid box, in run order (read from the stored boxes: nothing is
+        unpacked). An empty layer's box is empty."""
+        starts = np.flatnonzero(np.diff(self._index, prepend=-1))
+        boxes = self._boxes[self._index[starts]].astype(np.int64)
+        return boxes[:, 2] * np.minimum(8 * boxes[:, 3], self.shape[1] - 8 * boxes[:, 1])  # as _unpack_box cuts it
+
     def _spans(self) -> Iterator[tuple[int, int, int]]:
         """Yield (first, last inclusive, distinct raster) for each run of identical consecutive layers."""
         starts = np.flatnonzero(np.diff(self._index, prepend=-1))

@@ -50,6 +50,7 @@ def _run(stack, part, printer, families: dict[str, Callable], progress=None) -> 
     shared = ("window", "enclosed", "filled", "solid_in_window")  # what every family's views start from
     ahead = tuple(dict.fromkeys((*shared, *(part for c in active for part in c.ahead))))
     prev, reported = None, 0.0
+    done = _work_done(stack)
     runs = enumerate(stack.runs())
     # The next run's labels and distance maps are made in a second thread while the families visit this one
     # (OpenCV and numpy release the GIL): a second core left idle by the optics' end is used. Only what needs
@@ -69,10 +70,24 @@ def _run(stack, part, printer, families: dict[str, Callable], progress=None) -> 
             view.forget()  # the run before is no longer read: freed now, not a run later
             view.keep_for_next()
             prev = view
-            if progress is not None and (view.last + 1) / stack.count - reported >= 1 / 32:
-                reported = (view.last + 1) / stack.count
+            if progress is not None and done[view.index] - reported >= 1 / 32:
+                reported = float(done[view.index])
                 progress(0.9 * reported)
     return {name: c.finish(frame) for name, c in collectors.items()}
+
+
+RUN_COST_PX = 800_000  # a run's fixed cost, in pixels of window (see _work_done)
+
+
+def _work_done(stack) -> np.ndarray:
+    """Return the share of the pass's work done after each run, so progress (and a tried change's pace, judged
+    from it) follows time rather than layers. A run costs a fixed part plus a part per pixel of its window
+    (about its solid box): measured here, 256 ms for each of the 100 mm zoned lens's 133 runs of 16 Mpx lying
+    flat and 25 ms for each of its 3,999 runs of 0.86 Mpx on its edge, that is 12 ms + 15 ms per Mpx. By
+    layers, the lens on its edge (narrow first and last layers, widest in the middle) showed half its true
+    pace at its start."""
+    cost = stack.run_box_px().astype(np.float64) + RUN_COST_PX
+    return np.cumsum(cost) / cost.sum()
 
 
 def _prepare_next(pool: ThreadPoolExecutor, frame: Frame, runs, below, ahead: tuple[str, ...]) -> Future | None:

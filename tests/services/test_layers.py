@@ -514,3 +514,16 @@ def test_orient_part_refuses_an_unknown_axis(make_part):
     with pytest.raises(UnusableInput) as err:
         orient_part(make_part(Manifold.cube((1.0, 1.0, 1.0))), "up")
     assert err.value.code == "bad_orientation"
+
+
+def test_run_box_px_is_each_runs_unpacked_box_without_unpacking():
+    """The areas read from the stored boxes equal those of the boxes unpacked, run by run (empty layers included,
+    and a box that starts mid-frame and reaches the frame's right edge, where packing rounds up to a byte)."""
+    frame = np.zeros((40, 61), bool)
+    wide, edge, dot = frame.copy(), frame.copy(), frame.copy()
+    wide[5:30, 3:50] = True
+    edge[10:12, 45:61] = True
+    dot[20, 20] = True
+    stack = LayerStack.from_masks([wide, wide, frame, edge, dot, dot, frame], pixel_mm=0.1, layer_height_mm=0.1)
+    unpacked = [box.shape[0] * box.shape[1] for _, _, _, box in stack.run_boxes()]
+    assert stack.run_box_px().tolist() == unpacked and len(unpacked) == 5

@@ -2,6 +2,9 @@
 
 import json
 
+import numpy as np
+import pytest
+
 from manifold3d import Manifold
 
 from services import catalogue
@@ -43,3 +46,20 @@ def test_progress_follows_the_shared_pass_and_only_rises(stack_of):
     seen = []
     run_rules(stack=stack, part=part, printer=catalogue.printer("bay1-lcd-resin"), progress=seen.append)
     assert seen == sorted(seen) and seen[-1] == 1.0 and any(0 < f < 0.9 for f in seen)
+
+
+def test_the_shared_pass_counts_progress_by_work_not_by_layers():
+    """A run's share of the pass is a fixed cost plus its solid box's pixels (scan.RUN_COST_PX, measured on this
+    machine): one 9 Mpx layer under nine distinct one-pixel layers is over half the work, not a tenth, so a
+    tried change's pace judged from the progress is not misled by a part whose layers differ in size."""
+    from services.layers import LayerStack
+    from services.rules import scan
+
+    wide = np.ones((3000, 3000), bool)
+    dots = [np.zeros((3000, 3000), bool) for _ in range(9)]
+    for i, dot in enumerate(dots):
+        dot[10 * i, 10 * i] = True
+    done = scan._work_done(LayerStack.from_masks([wide, *dots], pixel_mm=0.1, layer_height_mm=0.1))
+    # (a one-pixel layer's stored box is a byte wide: 8 pixels)
+    assert done[0] == pytest.approx((9e6 + scan.RUN_COST_PX) / (9e6 + 10 * scan.RUN_COST_PX + 9 * 8))
+    assert done[-1] == pytest.approx(1.0) and np.all(np.diff(done) > 0)
