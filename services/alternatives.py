@@ -64,7 +64,8 @@ def what_must_change(*, part: Part, printer: PrinterProfile, material: Material,
                      findings: Sequence[Finding],
                      catalogue: Sequence[tuple[PrinterProfile, Material]] | Callable[[], Sequence] = (),
                      budget_s: float = 60.0, progress: Callable[[float], None] | None = None,
-                     at_once: int = 2, unfinished: list[str] | None = None) -> list[Alternative]:
+                     at_once: int = 2, unfinished: list[str] | None = None,
+                     rules_s_per_work: float | None = None) -> list[Alternative]:
     """Return up to three changes that remove blockers from the part, best first (empty: no blockers to remove).
 
     ``catalogue`` is the lab's (printer, material) pairs to try besides the part's own, or a function returning
@@ -74,6 +75,8 @@ def what_must_change(*, part: Part, printer: PrinterProfile, material: Material,
     candidates are tried side by side (1 where memory is tight: each holds its own layer stack). ``unfinished``,
     when given, receives the sentence of each change not finished within the budget (stopped, or never started),
     so that a report can say what was left untried rather than let "nothing found" stand for it.
+    ``rules_s_per_work``, the part's own rules pass's seconds per unit of work (``scan.pass_work``), projects a
+    tried change's rules from its sliced stack before they start: one that cannot end in time is not begun.
     """
     blockers = [f for f in findings if f.severity == "blocker"]
     # Mesh defects go with the part wherever it is printed: no printer or orientation removes them.
@@ -97,7 +100,8 @@ def what_must_change(*, part: Part, printer: PrinterProfile, material: Material,
         try:
             return _try(scaled_part(part, factor) if scaled else part, kind, cand_printer, cand_material,
                         orientation, before, blockers, material,
-                        same_frame=orientation == settings.orientation and not scaled, factor=factor, deadline=deadline)
+                        same_frame=orientation == settings.orientation and not scaled, factor=factor, deadline=deadline,
+                        rules_s_per_work=rules_s_per_work)
         except _OutOfTime:
             stopped.add(i)
             return None  # not finished within the budget: not shown
@@ -252,7 +256,7 @@ class _OutOfTime(Exception):
 
 # A stage's pace is read once it is this far along and has run this long (before, the first layers say too little),
 # and it is stopped when what is left of it alone, at its pace so far, would need this many times the time left.
-PACE_FROM_FRACTION, PACE_FROM_S, PACE_MARGIN = 0.05, 1.0, 2.0
+PACE_FROM_FRACTION, PACE_FROM_S, PACE_MARGIN = 0.05, 1.0, 1.5
 
 
 def _paced(deadline: float | None) -> Callable[[float], None]:
@@ -279,8 +283,21 @@ def _paced(deadline: float | None) -> Callable[[float], None]:
     return report
 
 
+def _projected_in_time(stack, rules_s_per_work: float | None, deadline: float | None) -> None:
+    """Raise ``_OutOfTime`` when the rules on this stack, projected at the part's own rules pace, would need more
+    than PACE_MARGIN times the time the budget has left (the projection counts each run's window and fixed cost,
+    so a tall stack of small layers, such as a lens on its edge, is judged before its first layer is checked)."""
+    if deadline is None or not rules_s_per_work:
+        return
+    from services.rules import scan
+
+    if rules_s_per_work * scan.pass_work(stack) > PACE_MARGIN * (deadline - time.monotonic()):
+        raise _OutOfTime
+
+
 def _try(part, kind, printer, material, orientation, before, blockers, own_material, *, same_frame: bool,
-         factor: float | None = None, deadline: float | None = None) -> Alternative | None:
+         factor: float | None = None, deadline: float | None = None,
+         rules_s_per_work: float | None = None) -> Alternative | None:
     """Return what the check finds after the change, or None when the part still does not fit the printer
     (nothing else about it matters then; the build-fit check is cheap, the slicing and rules are not)."""
     from services.estimate import estimate_print
@@ -291,6 +308,7 @@ def _try(part, kind, printer, material, orientation, before, blockers, own_mater
         return None
     stack = layers.build_layer_stack(oriented, pixel_mm=printer.pixel_mm, layer_height_mm=printer.layer_height_mm,
                                      progress=_paced(deadline))
+    _projected_in_time(stack, rules_s_per_work, deadline)
     rules = run_rules(stack=stack, part=oriented, printer=printer, progress=_paced(deadline))
     # A feature the printer's grid drops is not fixed: its blocker stands (same orientation, same frame).
     lost = lost_features(stack, blockers) if same_frame else []

@@ -7,6 +7,8 @@ main thread (the CLI); the worker uses Celery's soft time limit, which this modu
 
 from __future__ import annotations
 
+import ctypes
+import functools
 import resource
 import signal
 import threading
@@ -14,6 +16,26 @@ from contextlib import contextmanager
 
 DEFAULT_MEMORY_MIB = 4096
 DEFAULT_TIME_LIMIT_S = 600
+
+
+def release_free_heap() -> None:
+    """Hand the heap's free pages back to the system (glibc's ``malloc_trim``; nothing where there is none).
+
+    A check allocates and frees frame-sized arrays run after run, in two threads; glibc keeps what was freed for
+    the next allocation, so the resident size grows past what is in use (on the 100 mm lens at 25 um: 121 MB
+    in use, 925 MB resident when the rules and optics had ended). A trim costs well under a millisecond.
+    """
+    trim = _malloc_trim()
+    if trim is not None:
+        trim(0)
+
+
+@functools.cache
+def _malloc_trim():
+    try:
+        return ctypes.CDLL(None).malloc_trim  # the process's own symbols: glibc's, where it is the C library
+    except (OSError, AttributeError):
+        return None
 
 
 class TimeLimitReached(Exception):

@@ -14,6 +14,7 @@ from services import layers, pictures
 from services.alternatives import what_must_change
 from services.errors import UnusableInput
 from services.findings import Finding, sorted_by_severity, verdict_of
+from services.limits import release_free_heap
 from services.part import Part
 from services.part_view import PreparedViews, part_view_json, prepare_views
 from services.profiles import Material, PrinterProfile, check_pairing
@@ -133,7 +134,8 @@ def build_report(*, part: Part, printer: PrinterProfile, material: Material,
     unfinished: list[str] = []
     to_change = stages.run("alternatives", lambda p: what_must_change(
         part=part, printer=printer, material=material, settings=settings, findings=rechecked,
-        catalogue=alternatives, progress=p, at_once=2 if concurrent_stages else 1, unfinished=unfinished))
+        catalogue=alternatives, progress=p, at_once=2 if concurrent_stages else 1, unfinished=unfinished,
+        rules_s_per_work=_rules_pace(stages, stack)))
     to_meet = stages.run("target_changes", lambda p: changes_for_targets(
         part=oriented, stack=stack, printer=printer, material=material, settings=settings, targets=targets,
         run_optics=lambda part_, stack_, printer_, material_: _optics(
@@ -172,7 +174,16 @@ def _rules_estimate_optics(stages: Stages, *, part, oriented, stack, printer, ma
 
     (rules, estimate), (seen, prepared) = (stages.side_by_side(printability, optics) if concurrent
                                            else (printability(), optics()))
+    release_free_heap()  # before the pictures and the tried changes: what the two branches freed
     return rules, estimate, seen, prepared
+
+
+def _rules_pace(stages: Stages, stack) -> float | None:
+    """Return this check's rules seconds per unit of work (``scan.pass_work``), to project a tried change's."""
+    from services.rules import scan
+
+    spent, work = stages.timings_s.get("rules"), scan.pass_work(stack) if stack.count else 0.0
+    return spent / work if spent and work else None
 
 
 def finite_sections(sections: dict) -> tuple[dict, list[str]]:

@@ -17,6 +17,7 @@ from functools import cached_property
 import cv2
 import numpy as np
 
+from services.limits import release_free_heap
 from services.rules import raster, thin
 
 _cache = threading.local()  # per thread: two checks (or two tried changes) at once never share an entry
@@ -51,6 +52,7 @@ def _run(stack, part, printer, families: dict[str, Callable], progress=None) -> 
     ahead = tuple(dict.fromkeys((*shared, *(part for c in active for part in c.ahead))))
     prev, reported = None, 0.0
     done = _work_done(stack)
+    wide = frame.ny * frame.nx >= TRIM_FROM_PX
     runs = enumerate(stack.runs())
     # The next run's labels and distance maps are made in a second thread while the families visit this one
     # (OpenCV and numpy release the GIL): a second core left idle by the optics' end is used. Only what needs
@@ -70,12 +72,15 @@ def _run(stack, part, printer, families: dict[str, Callable], progress=None) -> 
             view.forget()  # the run before is no longer read: freed now, not a run later
             view.keep_for_next()
             prev = view
+            if wide:
+                release_free_heap()
             if progress is not None and done[view.index] - reported >= 1 / 32:
                 reported = float(done[view.index])
                 progress(0.9 * reported)
     return {name: c.finish(frame) for name, c in collectors.items()}
 
 
+TRIM_FROM_PX = 4_000_000  # frames from which the freed heap is handed back after every run
 RUN_COST_PX = 800_000  # a run's fixed cost, in pixels of window (see _work_done)
 
 
@@ -86,8 +91,18 @@ def _work_done(stack) -> np.ndarray:
     flat and 25 ms for each of its 3,999 runs of 0.86 Mpx on its edge, that is 12 ms + 15 ms per Mpx. By
     layers, the lens on its edge (narrow first and last layers, widest in the middle) showed half its true
     pace at its start."""
-    cost = stack.run_box_px().astype(np.float64) + RUN_COST_PX
+    cost = _run_costs(stack)
     return np.cumsum(cost) / cost.sum()
+
+
+def pass_work(stack) -> float:
+    """Return the pass's work on a stack in the units of ``_work_done`` (pixels of window, a run's fixed cost
+    counted as RUN_COST_PX of them): seconds per unit, measured on one stack, project the pass on another."""
+    return float(_run_costs(stack).sum())
+
+
+def _run_costs(stack) -> np.ndarray:
+    return stack.run_box_px().astype(np.float64) + RUN_COST_PX
 
 
 def _prepare_next(pool: ThreadPoolExecutor, frame: Frame, runs, below, ahead: tuple[str, ...]) -> Future | None:

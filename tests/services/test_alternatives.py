@@ -136,8 +136,8 @@ def test_a_change_still_running_when_the_budget_is_spent_is_dropped(make_part):
 
 
 def test_a_change_whose_pace_cannot_end_within_the_budget_stops_early(monkeypatch):
-    """A stage's pace is projected from its progress: 10 % done in 2 s leaves 18 s at that pace, over twice the 8 s
-    the budget still holds, so the change stops now rather than at the deadline; half done in 2 s goes on; and
+    """A stage's pace is projected from its progress: 10 % done in 2 s leaves 18 s at that pace, over 1.5 times the
+    8 s the budget still holds, so the change stops now rather than at the deadline; half done in 2 s goes on; and
     nothing is read from the first 5 % or the first second (a choice of this project: too little is done to read a pace)."""
     from services import alternatives
 
@@ -163,4 +163,35 @@ def test_changes_the_budget_leaves_unfinished_are_named_in_trying_order(make_par
     found = what_must_change(part=part, printer=printer, material=material, settings=CheckSettings(),
                              findings=_blockers(part, printer), budget_s=-1.0, unfinished=unfinished)
     assert found == []
+    assert unfinished[:3] == [f"build it along {axis} on the same printer" for axis in ("-z", "+x", "+y")]
+
+
+def test_a_change_whose_rules_are_projected_past_the_budget_is_not_begun(make_part, monkeypatch):
+    """Once a change's stack is sliced, its rules are projected at the part's own rules pace (seconds per unit of
+    ``scan.pass_work``): over PACE_MARGIN times the budget left, the change stops before its first layer is checked
+    and is named unfinished; a pace that fits lets it run. (Measured here: the 100 mm zoned lens's rules lying flat
+    projected its rules on its edge at 106 s; they took about 100 s with another check beside them.)"""
+    from services import alternatives
+    from services.rules import scan
+
+    part = _finned(make_part)
+    printer, material = PRINTERS["bay1-lcd-resin"], MATERIALS["standard-resin"]
+    blockers = _blockers(part, printer)
+    stack = layers.build_layer_stack(part, pixel_mm=printer.pixel_mm, layer_height_mm=printer.layer_height_mm)
+    now = [100.0]
+    monkeypatch.setattr(alternatives.time, "monotonic", lambda: now[0])
+    work = scan.pass_work(stack)
+    with pytest.raises(alternatives._OutOfTime):
+        alternatives._projected_in_time(stack, 20.0 / work, deadline=110.0)  # 20 s of rules, 10 s left
+    alternatives._projected_in_time(stack, 12.0 / work, deadline=110.0)  # 12 s: within 1.5 x 10 s
+    alternatives._projected_in_time(stack, None, deadline=110.0)  # no pace measured: never stops
+    alternatives._projected_in_time(stack, 1e9, deadline=None)  # no budget: never stops
+
+    monkeypatch.setattr(alternatives.time, "monotonic", lambda: 0.0)
+    ran = []
+    monkeypatch.setattr(alternatives, "run_rules", lambda **kw: ran.append(kw) or run_rules(**kw))
+    unfinished: list[str] = []
+    found = what_must_change(part=part, printer=printer, material=material, settings=CheckSettings(),
+                             findings=blockers, unfinished=unfinished, rules_s_per_work=1e6)
+    assert found == [] and ran == []
     assert unfinished[:3] == [f"build it along {axis} on the same printer" for axis in ("-z", "+x", "+y")]
