@@ -21,7 +21,7 @@ from services.errors import UnusableInput
 from services.findings import Finding
 from services.part import Part
 from services.profiles import Material, PrinterProfile, check_pairing
-from services.rules import run_rules
+from services.rules import run_rules, scan
 from services.rules.build_fit import check_build_fit
 from services.settings import CheckSettings
 
@@ -289,8 +289,6 @@ def _projected_in_time(stack, rules_s_per_work: float | None, deadline: float | 
     so a tall stack of small layers, such as a lens on its edge, is judged before its first layer is checked)."""
     if deadline is None or not rules_s_per_work:
         return
-    from services.rules import scan
-
     if rules_s_per_work * scan.pass_work(stack) > PACE_MARGIN * (deadline - time.monotonic()):
         raise _OutOfTime
 

@@ -18,7 +18,7 @@ from services.limits import release_free_heap
 from services.part import Part
 from services.part_view import PreparedViews, part_view_json, prepare_views
 from services.profiles import Material, PrinterProfile, check_pairing
-from services.rules import run_rules
+from services.rules import run_rules, scan
 from services.rules.build_fit import check_build_fit
 from services.requirement_check import check_requirements
 from services.target_changes import changes_for_targets
@@ -180,8 +180,6 @@ def _rules_estimate_optics(stages: Stages, *, part, oriented, stack, printer, ma
 
 def _rules_pace(stages: Stages, stack) -> float | None:
     """Return this check's rules seconds per unit of work (``scan.pass_work``), to project a tried change's."""
-    from services.rules import scan
-
     spent, work = stages.timings_s.get("rules"), scan.pass_work(stack) if stack.count else 0.0
     return spent / work if spent and work else None
 

@@ -108,9 +108,8 @@ def _mirror_framed(power: np.ndarray, nx: int) -> np.ndarray:
     flip = np.r_[0, ny - 1:0:-1]  # row of -fy
     framed = np.empty((ny, half + 2), power.dtype)
     framed[:, 1:-1] = power
-    framed[:, 0] = power[flip, 1] if half > 1 else power[:, 0]
-    past = nx - half  # the bin one past the last, as a non-negative one: -(nx - half) + nx
-    framed[:, -1] = power[flip, past] if 0 <= past < half else 0.0
+    framed[:, 0] = power[flip, 1]
+    framed[:, -1] = power[flip, nx - half]  # the bin one past the last is -(nx - half), mirrored: nx - half < half
     return framed
 
 
