@@ -54,7 +54,7 @@ def orient_part(part: Part, orientation: str) -> Part:
         raise UnusableInput("empty_part", f"{part.name} has no triangles to orient.")
     rotation = np.array(_ROTATIONS[orientation])
     axes = np.abs(rotation).argmax(axis=1)  # a signed permutation: gather and negate, no matmul needed
-    vertices = np.asarray(part.vertices_mm, dtype=np.float64)[:, axes]
+    vertices = np.ascontiguousarray(np.asarray(part.vertices_mm, dtype=np.float64)[:, axes])  # rows, as given
     vertices[:, rotation[np.arange(3), axes] < 0] *= -1.0
     used = np.zeros(len(vertices), dtype=bool)
     used[np.asarray(part.faces).ravel()] = True  # an unreferenced vertex must not lift the part off the plate

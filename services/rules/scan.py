@@ -73,14 +73,15 @@ def _run(stack, part, printer, families: dict[str, Callable], progress=None) -> 
             view.keep_for_next()
             prev = view
             if wide:
-                release_free_heap()
+                release_free_heap(at_least_bytes=TRIM_FREE_BYTES)
             if progress is not None and done[view.index] - reported >= 1 / 32:
                 reported = float(done[view.index])
                 progress(0.9 * reported)
     return {name: c.finish(frame) for name, c in collectors.items()}
 
 
-TRIM_FROM_PX = 4_000_000  # frames from which the freed heap is handed back after every run
+TRIM_FROM_PX = 4_000_000  # frames from which the freed heap may be handed back after a run ...
+TRIM_FREE_BYTES = 256 << 20  # ... when this much is held free: the 100 mm lens often, the 2M lens never (measured)
 RUN_COST_PX = 800_000  # a run's fixed cost, in pixels of window (see _work_done)
 
 
