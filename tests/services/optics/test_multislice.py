@@ -129,3 +129,42 @@ def test_the_block_sums_count_every_pixel_centre_once(cell_mm, sub):
         np.add.at(count, (r[inside], c[inside]), 1.0)
         expected = np.minimum(count * (0.1 / fine.cell_mm) ** 2, 1.0)
         assert (run.fill if sub == 1 else run.fine_fill) == pytest.approx(expected, abs=1e-12)
+
+
+@pytest.mark.parametrize("sub", [1, 3])
+def test_cells_read_from_each_runs_solid_box_count_as_the_whole_frame(sub):
+    """Cells read from a run's solid box (and the void pixel around it) give the fills and edge lengths of a plain
+    count over the whole frame: solid pixel centres per cell, and 4-neighbour solid/void transitions per cell, each
+    counted in the pixel before it (np.add.at), blobs in the middle and touching every side of the frame."""
+    rng = np.random.default_rng(11)
+    ny, nx = 41, 57
+    masks = []
+    for r0, r1, c0, c1 in ((5, 12, 7, 20), (0, 9, 30, 57), (30, 41, 0, 11), (14, 27, 40, 57), (0, 41, 0, 57)):
+        mask = np.zeros((ny, nx), bool)
+        mask[r0:r1, c0:c1] = rng.random((r1 - r0, c1 - c0)) < 0.6
+        masks.append(mask)
+    stack = LayerStack.from_masks(masks, pixel_mm=0.1, layer_height_mm=0.1, origin_mm=(-2.83, -2.01, 0.0))
+    grid = CellGrid.around(axis_mm=(0.07, -0.03), half_extent_mm=(2.9, 2.2), cell_mm=0.3)
+    fine = grid.subdivided(sub)
+    rows = np.floor((stack.y_centres_mm - (grid.axis_mm[1] - grid.shape[0] / 2 * 0.3)) / fine.cell_mm + 1e-6)
+    cols = np.floor((stack.x_centres_mm - (grid.axis_mm[0] - grid.shape[1] / 2 * 0.3)) / fine.cell_mm + 1e-6)
+    rows, cols = rows.astype(int), cols.astype(int)
+
+    def per_cell(values):
+        r, c = np.nonzero(values)
+        w = values[r, c].astype(float)
+        r, c = rows[r], cols[c]
+        inside = (r >= 0) & (r < fine.shape[0]) & (c >= 0) & (c < fine.shape[1])
+        out = np.zeros(fine.shape)
+        np.add.at(out, (r[inside], c[inside]), w[inside])
+        return out
+
+    runs = list(cell_runs(stack, grid, with_edges=True, sub=sub))
+    assert len(runs) == len(masks)
+    for run, mask in zip(runs, masks):
+        turns = np.zeros(mask.shape)
+        turns[:, :-1] += mask[:, 1:] != mask[:, :-1]
+        turns[:-1, :] += mask[1:, :] != mask[:-1, :]
+        fill, edge = (run.fill, run.edge_mm) if sub == 1 else (run.fine_fill, run.fine_edge_mm)
+        assert fill == pytest.approx(np.minimum(per_cell(mask) * (0.1 / fine.cell_mm) ** 2, 1.0), abs=1e-12)
+        assert edge == pytest.approx(per_cell(turns) * 0.1 * np.pi / 4, abs=1e-12)  # Crofton's pi / 4 per crossing
