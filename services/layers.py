@@ -126,11 +126,20 @@ class LayerStack:
         for first, last, d in self._spans():
             yield first, last, self._unpack(d)
 
-    def run_boxes(self) -> Iterator[tuple[int, int, tuple[int, int], np.ndarray]]:
+    def run_boxes(self, margin_px: int = 0) -> Iterator[tuple[int, int, tuple[int, int], np.ndarray]]:
         """Yield (first, last inclusive, (row0, col0), mask) for each run, the mask cut to the run's solid box
-        (outside it the layer is empty): for work that need not touch the whole frame."""
+        grown by ``margin_px`` void pixels inside the frame (outside it the layer is empty): for work that need
+        not touch the whole frame (a margin of 1 holds the void side of every solid/void transition)."""
         for first, last, d in self._spans():
-            yield first, last, *self._unpack_box(d)
+            (r0, c0), box = self._unpack_box(d)
+            if margin_px:
+                top, left = min(r0, margin_px), min(c0, margin_px)
+                rows = min(r0 + box.shape[0] + margin_px, self.shape[0]) - r0 + top
+                cols = min(c0 + box.shape[1] + margin_px, self.shape[1]) - c0 + left
+                grown = np.zeros((rows, cols), dtype=bool)
+                grown[top:top + box.shape[0], left:left + box.shape[1]] = box
+                (r0, c0), box = (r0 - top, c0 - left), grown
+            yield first, last, (r0, c0), box
 
     def run_box_px(self) -> np.ndarray:
         """Return the pixel area of each run's solid box, in run order (read from the stored boxes: nothing is

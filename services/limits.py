@@ -24,7 +24,7 @@ def release_free_heap(at_least_bytes: int = 0) -> None:
 
     A check allocates and frees frame-sized arrays run after run, in two threads; glibc keeps what was freed for
     the next allocation, so the resident size grows past what is in use (on the 100 mm lens at 25 um: 121 MB
-    in use, 925 MB resident when the rules and optics had ended). The trim itself takes about a millisecond;
+    in use, 925 MB resident when the rules and optics had ended). The trim itself takes about 3 ms;
     its price comes later, as page faults when the pages are allocated again: trimmed after every run, the 2M
     lens's rules took 8.5-9.6 s instead of 5.9-6.2 s (measured here), hence the floor on what is worth handing
     back.

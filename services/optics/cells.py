@@ -187,11 +187,11 @@ def cell_runs(stack, grid: CellGrid, *, with_edges: bool = False, sub: int = 1) 
     def length(turns):
         return turns * stack.pixel_mm * _CROFTON if with_edges else np.zeros(0)
 
-    for first, last, corner, box in stack.run_boxes():
-        # Only the run's solid box, one void pixel around it (where its edges' transitions are counted), is read:
-        # outside it the layer is void (a smooth lens's upper layers are small: half the frame on average).
-        mask, (r0, r1), (c0, c1) = _framed(box, corner, stack.shape)
-        rows, cols = _BlockSum(row_bins[r0:r1], fine.shape[0]), _BlockSum(col_bins[c0:c1], fine.shape[1])
+    # Only the run's solid box, one void pixel around it (where its edges' transitions are counted), is read:
+    # outside it the layer is void (a smooth lens's upper layers are small: half the frame on average).
+    for first, last, (r0, c0), mask in stack.run_boxes(margin_px=1):
+        rows = _BlockSum(row_bins[r0:r0 + mask.shape[0]], fine.shape[0])
+        cols = _BlockSum(col_bins[c0:c0 + mask.shape[1]], fine.shape[1])
         count = cols(rows(mask.view(np.uint8), 0), 1)
         turns = _edges(mask, rows, cols) if with_edges else None
         thickness = (last - first + 1) * stack.layer_height_mm
@@ -201,15 +201,6 @@ def cell_runs(stack, grid: CellGrid, *, with_edges: bool = False, sub: int = 1) 
         yield CellRun(first, last, thickness, np.minimum(_coarsen(count, sub) * scale, 1.0),
                       length(_coarsen(turns, sub) if with_edges else None),
                       np.minimum(count * fine_scale, 1.0), length(turns))
-
-
-def _framed(box: np.ndarray, corner: tuple[int, int], shape: tuple[int, int]):
-    """Return (mask, (row0, row1), (col0, col1)): a run's solid box with a void pixel around it inside the frame."""
-    r0, c0 = max(corner[0] - 1, 0), max(corner[1] - 1, 0)
-    r1, c1 = min(corner[0] + box.shape[0] + 1, shape[0]), min(corner[1] + box.shape[1] + 1, shape[1])
-    mask = np.zeros((r1 - r0, c1 - c0), dtype=bool)
-    mask[corner[0] - r0:corner[0] - r0 + box.shape[0], corner[1] - c0:corner[1] - c0 + box.shape[1]] = box
-    return mask, (r0, r1), (c0, c1)
 
 
 def _coarsen(a: np.ndarray, sub: int) -> np.ndarray:
