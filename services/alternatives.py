@@ -9,6 +9,7 @@ The best three that remove blockers are kept, with the numbers they would give. 
 
 from __future__ import annotations
 
+import threading
 import time
 from collections.abc import Callable, Sequence
 from concurrent.futures import FIRST_COMPLETED, ThreadPoolExecutor, wait
@@ -53,10 +54,12 @@ class Alternative(TriedChange):
     currency: str | None
     note: str | None = None
     scale: float | None = None  # the uniform scale of a "scale" change
+    also_orientations: tuple[str, ...] = ()  # other turns whose layers are these, turned in the plane: the same result
 
     def to_dict(self) -> dict:
         d = asdict(self)
         d["blockers_removed"] = list(self.blockers_removed)
+        d["also_orientations"] = list(self.also_orientations)
         return d
 
 
@@ -65,7 +68,7 @@ def what_must_change(*, part: Part, printer: PrinterProfile, material: Material,
                      catalogue: Sequence[tuple[PrinterProfile, Material]] | Callable[[], Sequence] = (),
                      budget_s: float = 60.0, progress: Callable[[float], None] | None = None,
                      at_once: int = 2, unfinished: list[str] | None = None,
-                     rules_s_per_work: float | None = None) -> list[Alternative]:
+                     rules_s_per_work: float | None = None, stack: layers.LayerStack | None = None) -> list[Alternative]:
     """Return up to three changes that remove blockers from the part, best first (empty: no blockers to remove).
 
     ``catalogue`` is the lab's (printer, material) pairs to try besides the part's own, or a function returning
@@ -77,6 +80,10 @@ def what_must_change(*, part: Part, printer: PrinterProfile, material: Material,
     so that a report can say what was left untried rather than let "nothing found" stand for it.
     ``rules_s_per_work``, the part's own rules pass's seconds per unit of work (``scan.pass_work``), projects a
     tried change's rules from its sliced stack before they start: one that cannot end in time is not begun.
+    ``stack``, the part's own layers at ``printer``'s grid: a turn whose layers are these, turned or mirrored in
+    the plane, changes nothing the rules can see and is not checked again; likewise a turn whose layers are an
+    earlier turn's takes that turn's result (a part symmetric about its axis is the same on +x and on +y) and is
+    named with it.
     """
     blockers = [f for f in findings if f.severity == "blocker"]
     # Mesh defects go with the part wherever it is printed: no printer or orientation removes them.
@@ -93,20 +100,25 @@ def what_must_change(*, part: Part, printer: PrinterProfile, material: Material,
     deadline = time.monotonic() + budget_s
 
     stopped = set()
+    seen = _SameLayers(stack)
 
-    def attempt(i: int, candidate) -> Alternative | None:
+    def attempt(i: int, candidate) -> Alternative | _Twin | None:
         kind, cand_printer, cand_material, orientation = candidate
         scaled = kind == "scale"
         try:
             return _try(scaled_part(part, factor) if scaled else part, kind, cand_printer, cand_material,
                         orientation, before, blockers, material,
-                        same_frame=orientation == settings.orientation and not scaled, factor=factor, deadline=deadline,
-                        rules_s_per_work=rules_s_per_work)
+                        same_frame=orientation == settings.orientation and not scaled, factor=factor,
+                        deadline=deadline, rules_s_per_work=rules_s_per_work,
+                        seen=(lambda sliced: seen.match(i, sliced)) if kind == "orientation" else None)
         except _OutOfTime:
             stopped.add(i)
             return None  # not finished within the budget: not shown
 
     results = _tried_side_by_side(attempt, candidates, deadline, progress, at_once)
+    # A twin of a turn left unfinished is unfinished too: it was never judged on its own.
+    stopped |= {i for i, r in enumerate(results) if isinstance(r, _Twin) and r.of in stopped}
+    results = _merge_twins(results)
     if unfinished is not None:
         unfinished.extend(change_sentence(kind, p, m, o, factor=factor, freq_ghz=_design_freq_ghz(part))
                           for i, (kind, p, m, o) in enumerate(candidates) if i in stopped or i >= len(results))
@@ -250,6 +262,61 @@ def lost_features(stack, blockers: Sequence[Finding]) -> list[Finding]:
     return lost
 
 
+_UNCHANGED = object()  # a turn whose layers are the part's own, turned in the plane: nothing to check again
+
+
+@dataclass(frozen=True, slots=True)
+class _Twin:
+    """A tried turn whose layers are an earlier turn's (``of``, its index among the candidates), turned in the
+    plane as ``turn`` says: it takes that turn's result, whatever it is (no rules run on it)."""
+
+    of: int
+    orientation: str
+    turn: str
+
+
+class _SameLayers:
+    """The layer stacks of the turns tried so far, so that a turn whose layers were already checked (the part's
+    own, or an earlier turn's, turned or mirrored in the plane: ``layers.same_layers_turned``) is not checked
+    again. A twin does not wait for the turn it repeats: ``_merge_twins`` joins them once all have ended."""
+
+    def __init__(self, own: layers.LayerStack | None) -> None:
+        self._own = own
+        self._lock = threading.Lock()
+        self._stacks: dict[int, layers.LayerStack] = {}
+
+    def match(self, i: int, stack: layers.LayerStack) -> object:
+        """Return ``_UNCHANGED``, a ``_Twin`` of an earlier turn, or None for layers not seen before."""
+        if self._own is not None and layers.same_layers_turned(self._own, stack):
+            return _UNCHANGED
+        with self._lock:
+            earlier = sorted((j, s) for j, s in self._stacks.items() if j < i)
+        for j, other in earlier:
+            turn = layers.same_layers_turned(other, stack)
+            if turn:
+                return _Twin(j, "", turn)
+        with self._lock:
+            self._stacks[i] = stack  # only layers not seen before: a later twin finds the first of its kind
+        return None
+
+
+def _merge_twins(results: list) -> list[Alternative | None]:
+    """Fold each ``_Twin`` into the turn it repeats: that turn's change names both (the twin is not shown apart)."""
+    merged = list(results)
+    for i, twin in enumerate(results):
+        if not isinstance(twin, _Twin):
+            continue
+        merged[i] = None
+        first = merged[twin.of]
+        if isinstance(first, Alternative):
+            also = (*first.also_orientations, twin.orientation)
+            said = f"along {twin.orientation} its layers are these, {twin.turn}"
+            merged[twin.of] = replace(first, also_orientations=also, note="; ".join(filter(None, (first.note, said))),
+                                      change=f"build it along {' or '.join((first.orientation, *also))} on the same "
+                                             "printer")
+    return merged
+
+
 class _OutOfTime(Exception):
     """Raised from a tried change's progress once the search's budget is spent, or once its pace shows it will be."""
 
@@ -294,10 +361,11 @@ def _projected_in_time(stack, rules_s_per_work: float | None, deadline: float | 
 
 
 def _try(part, kind, printer, material, orientation, before, blockers, own_material, *, same_frame: bool,
-         factor: float | None = None, deadline: float | None = None,
-         rules_s_per_work: float | None = None) -> Alternative | None:
+         factor: float | None = None, deadline: float | None = None, rules_s_per_work: float | None = None,
+         seen: Callable[[layers.LayerStack], object] | None = None) -> Alternative | _Twin | None:
     """Return what the check finds after the change, or None when the part still does not fit the printer
-    (nothing else about it matters then; the build-fit check is cheap, the slicing and rules are not)."""
+    (nothing else about it matters then; the build-fit check is cheap, the slicing and rules are not) or when
+    ``seen`` knows its layers as the part's own; a ``_Twin`` when ``seen`` knows them as another turn's."""
     from services.estimate import estimate_print
 
     oriented = layers.orient_part(part, orientation)
@@ -306,6 +374,9 @@ def _try(part, kind, printer, material, orientation, before, blockers, own_mater
         return None
     stack = layers.build_layer_stack(oriented, pixel_mm=printer.pixel_mm, layer_height_mm=printer.layer_height_mm,
                                      progress=_paced(deadline))
+    known = seen(stack) if seen is not None else None
+    if known is not None:
+        return None if known is _UNCHANGED else replace(known, orientation=orientation)
     _projected_in_time(stack, rules_s_per_work, deadline)
     rules = run_rules(stack=stack, part=oriented, printer=printer, progress=_paced(deadline))
     # A feature the printer's grid drops is not fixed: its blocker stands (same orientation, same frame).

@@ -230,6 +230,45 @@ class LayerStack:
         return (r0, c0), np.unpackbits(box, axis=1, count=width).view(bool)
 
 
+# The eight ways a layer can lie on itself in the build plane (rows are y, columns x): turned by quarters, or
+# mirrored. A part symmetric about its axis gives the same layers on either side (a lens or a plate on +x and +y).
+_PLANE_TURNS: dict[str, Callable[[np.ndarray], np.ndarray]] = {
+    "as they are": lambda a: a,
+    "mirrored across x": lambda a: a[::-1],
+    "mirrored across y": lambda a: a[:, ::-1],
+    "turned half a turn": lambda a: a[::-1, ::-1],
+    "mirrored across the diagonal": lambda a: a.T,
+    "mirrored across the other diagonal": lambda a: a[::-1, ::-1].T,
+    "turned a quarter": lambda a: a.T[::-1],
+    "turned three quarters": lambda a: a.T[:, ::-1],
+}
+
+
+def same_layers_turned(a: LayerStack, b: LayerStack) -> str | None:
+    """Return how ``b``'s layers are ``a``'s turned or mirrored in the build plane ("turned a quarter", ...), one
+    turn for every layer, or None when they are not (another grid, another layer count, other layers).
+
+    What the printer builds from ``b`` is then what it builds from ``a`` seen from another side: the same
+    sections, in the same order, each the same up to that turn. Compared pixel by pixel on the stored rasters
+    (cheap checks first: grid, count, runs of identical layers, each layer's area), every run at most once per
+    turn still standing, so a stack that differs is given up at its first differing run.
+    """
+    if (a.pixel_mm, a.layer_height_mm, a.count) != (b.pixel_mm, b.layer_height_mm, b.count):
+        return None
+    if sorted(a.shape) != sorted(b.shape) or not np.array_equal(a.area_mm2, b.area_mm2):
+        return None
+    a_runs, b_runs = list(a._spans()), list(b._spans())
+    if [s[:2] for s in a_runs] != [s[:2] for s in b_runs]:
+        return None
+    standing = [name for name, turn in _PLANE_TURNS.items() if turn(np.empty(a.shape, dtype=bool)).shape == b.shape]
+    for (_, _, da), (_, _, db) in zip(a_runs, b_runs):
+        layer_a, layer_b = a._unpack(da), b._unpack(db)
+        standing = [name for name in standing if np.array_equal(_PLANE_TURNS[name](layer_a), layer_b)]
+        if not standing:
+            return None
+    return standing[0]
+
+
 def _check_grid_sizes(pixel_mm: float, layer_height_mm: float) -> None:
     for value in (pixel_mm, layer_height_mm):
         if isinstance(value, bool) or not (isinstance(value, numbers.Real) and math.isfinite(value) and value > 0):

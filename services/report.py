@@ -135,7 +135,7 @@ def build_report(*, part: Part, printer: PrinterProfile, material: Material,
     to_change = stages.run("alternatives", lambda p: what_must_change(
         part=part, printer=printer, material=material, settings=settings, findings=rechecked,
         catalogue=alternatives, progress=p, at_once=2 if concurrent_stages else 1, unfinished=unfinished,
-        rules_s_per_work=_rules_pace(stages, stack)))
+        rules_s_per_work=_rules_pace(stages, stack), stack=stack))
     to_meet = stages.run("target_changes", lambda p: changes_for_targets(
         part=oriented, stack=stack, printer=printer, material=material, settings=settings, targets=targets,
         run_optics=lambda part_, stack_, printer_, material_: _optics(

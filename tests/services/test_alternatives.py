@@ -195,3 +195,77 @@ def test_a_change_whose_rules_are_projected_past_the_budget_is_not_begun(make_pa
                              findings=blockers, unfinished=unfinished, rules_s_per_work=1e6)
     assert found == [] and ran == []
     assert unfinished[:3] == [f"build it along {axis} on the same printer" for axis in ("-z", "+x", "+y")]
+
+
+def _crossed(make_part):
+    """A 10 x 10 x 1 mm plate with two crossed 0.1 mm fins 2 mm tall, centred on the origin: the part is the same
+    turned a quarter about its axis, so its layers on +x are those on +y, turned in the plane."""
+    plate = trimesh.creation.box(extents=(10, 10, 1))
+    plate.apply_translation((0, 0, 0.5))
+    fins = [trimesh.creation.box(extents=extents) for extents in ((0.1, 6, 2), (6, 0.1, 2))]
+    for fin in fins:
+        fin.apply_translation((0, 0, 1.99))
+    return make_part(trimesh.boolean.union([plate, *fins], engine="manifold"), name="crossed.stl")
+
+
+def test_a_turn_whose_layers_are_another_turns_is_named_with_it_not_checked_again(make_part, monkeypatch):
+    """The crossed fins on +x and on +y give the same layers (one mirrored across the diagonal): the rules run on +x
+    only, and the one suggestion names both sides with the numbers the rules give when +y is checked on its own."""
+    from services import alternatives
+
+    part = _crossed(make_part)
+    printer, material = PRINTERS["bay1-lcd-resin"], MATERIALS["standard-resin"]
+    blockers = _blockers(part, printer)
+    ran = []
+    monkeypatch.setattr(alternatives, "run_rules", lambda **kw: ran.append(kw["stack"].shape) or run_rules(**kw))
+    found = what_must_change(part=part, printer=printer, material=material, settings=CheckSettings(),
+                             findings=blockers, at_once=1)
+    sides = [a for a in found if a.kind == "orientation" and a.orientation in ("+x", "+y")]
+    assert len(sides) == 1, found
+    side = sides[0]
+    assert side.orientation == "+x" and side.also_orientations == ("+y",)
+    assert side.change == "build it along +x or +y on the same printer"
+    assert "along +y its layers are these, mirrored across the diagonal" in side.note
+    on_y = _blockers(part, printer, "+y")
+    assert side.blockers == len(on_y) and set(side.blockers_removed) == {f.rule for f in blockers} - {f.rule for f in on_y}
+    x_shape = layers.build_layer_stack(layers.orient_part(part, "+x"), pixel_mm=printer.pixel_mm,
+                                       layer_height_mm=printer.layer_height_mm).shape
+    assert ran.count(x_shape) == 1 and ran.count(x_shape[::-1]) == 0  # +x checked, +y (its frame transposed) not
+
+
+def test_a_turn_whose_layers_are_the_parts_own_is_not_checked_again(make_part, monkeypatch):
+    """A plate with a fin through it (off centre in y), the same above and below: turned over, its layers are its own
+    mirrored across x, so with the part's own stack given the rules run once less and the suggestions are the same."""
+    from services import alternatives
+
+    plate = trimesh.creation.box(extents=(10, 10, 1))
+    fin = trimesh.creation.box(extents=(0.1, 6, 4))
+    fin.apply_translation((0, 1, 0))
+    part = make_part(trimesh.boolean.union([plate, fin], engine="manifold"), name="through.stl")
+    printer, material = PRINTERS["bay1-lcd-resin"], MATERIALS["standard-resin"]
+    oriented = layers.orient_part(part, "+z")
+    own = layers.build_layer_stack(oriented, pixel_mm=printer.pixel_mm, layer_height_mm=printer.layer_height_mm)
+    upside_down = layers.build_layer_stack(layers.orient_part(part, "-z"), pixel_mm=printer.pixel_mm,
+                                           layer_height_mm=printer.layer_height_mm)
+    assert layers.same_layers_turned(own, upside_down) == "mirrored across x"
+    blockers = _blockers(part, printer)
+    counts = []
+    for stack in (None, own):
+        ran = []
+        monkeypatch.setattr(alternatives, "run_rules", lambda **kw: ran.append(1) or run_rules(**kw))
+        found = what_must_change(part=part, printer=printer, material=material, settings=CheckSettings(),
+                                 findings=blockers, at_once=1, stack=stack)
+        counts.append((len(ran), found))
+    (without, found_without), (with_own, found_with) = counts
+    assert with_own == without - 1 and found_with == found_without
+
+
+def test_a_twin_of_a_turn_left_unfinished_is_named_unfinished(make_part):
+    """The budget spent before anything starts: the crossed fins' +y (a twin of +x, had it been sliced) is named
+    unfinished like every other change, never shown as a result."""
+    part = _crossed(make_part)
+    printer, material = PRINTERS["bay1-lcd-resin"], MATERIALS["standard-resin"]
+    unfinished: list[str] = []
+    found = what_must_change(part=part, printer=printer, material=material, settings=CheckSettings(),
+                             findings=_blockers(part, printer), budget_s=-1.0, unfinished=unfinished)
+    assert found == [] and "build it along +y on the same printer" in unfinished

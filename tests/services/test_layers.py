@@ -527,3 +527,29 @@ def test_run_box_px_is_each_runs_unpacked_box_without_unpacking():
     stack = LayerStack.from_masks([wide, wide, frame, edge, dot, dot, frame], pixel_mm=0.1, layer_height_mm=0.1)
     unpacked = [box.shape[0] * box.shape[1] for _, _, _, box in stack.run_boxes()]
     assert stack.run_box_px().tolist() == unpacked and len(unpacked) == 5
+
+
+def test_layers_turned_or_mirrored_in_the_plane_are_recognised_and_named():
+    """Each of the eight turns of the square, made with numpy's own rot90 / flip (not the project's table), is
+    found and named; one pixel changed in one layer, one layer more, or another grid, and the stacks differ."""
+    rng = np.random.default_rng(7)
+    masks = [rng.random((9, 13)) < 0.4 for _ in range(3)]
+    masks.insert(1, masks[0])  # a run of two identical layers
+    a = LayerStack.from_masks(masks, pixel_mm=0.05, layer_height_mm=0.05)
+    made_by_numpy = {
+        "as they are": lambda m: m, "mirrored across x": lambda m: np.flip(m, 0),
+        "mirrored across y": lambda m: np.flip(m, 1), "turned half a turn": lambda m: np.rot90(m, 2),
+        "mirrored across the diagonal": np.transpose, "mirrored across the other diagonal": lambda m: np.rot90(m, 2).T,
+        "turned a quarter": np.rot90, "turned three quarters": lambda m: np.rot90(m, 3),
+    }
+    for name, turn in made_by_numpy.items():
+        b = LayerStack.from_masks([turn(m) for m in masks], pixel_mm=0.05, layer_height_mm=0.05)
+        assert layers.same_layers_turned(a, b) == name
+    changed = [m.copy() for m in masks]
+    changed[2][4, 6] = ~changed[2][4, 6]
+    assert layers.same_layers_turned(a, LayerStack.from_masks(changed, pixel_mm=0.05, layer_height_mm=0.05)) is None
+    taller = LayerStack.from_masks([*masks, masks[-1]], pixel_mm=0.05, layer_height_mm=0.05)
+    assert layers.same_layers_turned(a, taller) is None
+    assert layers.same_layers_turned(a, LayerStack.from_masks(masks, pixel_mm=0.1, layer_height_mm=0.05)) is None
+    # The same layers in another order are other layers: the stack is not turned over by a turn in the plane.
+    assert layers.same_layers_turned(a, LayerStack.from_masks(masks[::-1], pixel_mm=0.05, layer_height_mm=0.05)) is None
