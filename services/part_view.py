@@ -95,8 +95,7 @@ def part_view_json(part, stack, findings, prepared: PreparedViews | None = None)
     """Return the 3D view's data for one checked part (its oriented mesh, layer stack and sorted findings)."""
     prepared = prepared or prepare_views(part, stack)
     vertices, faces = prepared.vertices_mm, prepared.faces
-    lo = np.asarray(part.vertices_mm).min(axis=0)
-    hi = np.asarray(part.vertices_mm).max(axis=0)
+    lo, hi = part.bounds_mm
     view = {
         "schema": SCHEMA,
         "units": "mm",

@@ -246,7 +246,9 @@ def cluster_vertices(vertices: np.ndarray, faces: np.ndarray, max_faces: int) ->
         merged = merged[np.sort(first)]
         if len(merged) <= max_faces or cells <= 8:
             break
-        cells = int(cells * 0.7)
+        # A surface's faces go as the cells per side squared: aim just under the limit in one step (at most 0.9, so
+        # the grid always coarsens), instead of 0.7 a step (2M faces to 40,000: two passes instead of five).
+        cells = int(cells * min(0.9, 0.95 * np.sqrt(max_faces / len(merged))))
     counts = np.bincount(cluster, minlength=n)
     means = np.stack([np.bincount(cluster, vertices[:, i], minlength=n) for i in range(3)], axis=1) / counts[:, None]
     used, remap = np.unique(merged, return_inverse=True)
