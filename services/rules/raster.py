@@ -99,12 +99,34 @@ def dilate_disk(mask: np.ndarray, diameter_px: int) -> np.ndarray:
     return _unpack(_dilate_words(_pack(mask, pad, False), rows), mask.shape, pad)
 
 
+# Under this many pixels a layer is opened with OpenCV's erode and dilate and the disk as a kernel: the packed
+# words' dozens of shifts cost more in calls than in pixels there (a plate on its side: 581 layers of 604 x 84
+# pixels, 0.35 -> 0.05 s). Both give the same pixels (tests/services/rules/test_raster.py).
+SMALL_LAYER_PX = 1 << 18
+
+
 def open_disk(mask: np.ndarray, diameter_px: int, *, outside: bool = False) -> np.ndarray:
-    """Return the union of every disk of the diameter that fits inside ``mask``."""
+    """Return the union of every disk of the diameter that fits inside ``mask`` (beyond it: ``outside``)."""
     rows = disk_rows(diameter_px)
     pad = 2 * _reach(rows)  # the dilation reads erosions up to one reach into the padding
+    if mask.size <= SMALL_LAYER_PX:
+        return _open_with_kernel(mask, rows, pad, outside)
     words = _erode_words(_pack(mask, pad, outside), rows)
     return _unpack(_dilate_words(words, rows), mask.shape, pad)
+
+
+def _open_with_kernel(mask: np.ndarray, rows, pad: int, outside: bool) -> np.ndarray:
+    """``open_disk`` by OpenCV: erode with the disk's offsets, dilate with them reflected (a Minkowski sum), on
+    the mask padded with ``outside`` as far as the words' way pads it."""
+    reach = _reach(rows) - 1
+    kernel = np.zeros((2 * reach + 1, 2 * reach + 1), np.uint8)
+    for dy, a, b in rows:
+        kernel[reach + dy, reach + a:reach + b + 1] = 1
+    work = cv2.copyMakeBorder(mask.view(np.uint8), pad, pad, pad, pad, cv2.BORDER_CONSTANT, value=int(outside))
+    eroded = cv2.erode(work, kernel, anchor=(reach, reach), borderType=cv2.BORDER_CONSTANT, borderValue=int(outside))
+    opened = cv2.dilate(eroded, kernel[::-1, ::-1].copy(), anchor=(reach, reach), borderType=cv2.BORDER_CONSTANT,
+                        borderValue=0)
+    return opened[pad:pad + mask.shape[0], pad:pad + mask.shape[1]].view(bool)
 
 
 def _erode_words(words: np.ndarray, rows) -> np.ndarray:

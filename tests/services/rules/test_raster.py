@@ -29,6 +29,24 @@ def test_disk_morphology_matches_scipy(diameter):
     assert np.array_equal(raster.dilate_disk(mask, diameter), ndimage.binary_dilation(mask, st))
 
 
+@pytest.mark.parametrize("diameter", range(1, 13))
+def test_disk_opening_matches_scipy_by_kernel_and_by_packed_words(diameter, monkeypatch):
+    """The opening (every disk that fits, beyond the edge ``outside``) equals scipy's erosion then dilation on the
+    mask padded with ``outside``, on both of its paths: OpenCV's erode and dilate with the disk as a kernel (small
+    layers) and the packed words' shifts (large ones, forced here by a threshold of 0)."""
+    rng = np.random.default_rng(100 + diameter)
+    mask = ndimage.binary_opening(rng.random((60, 75)) < 0.7, np.ones((2, 2)))
+    st, pad = structure(diameter), 2 * max(max(abs(dy), abs(a), abs(b)) for dy, a, b in raster.disk_rows(diameter)) + 2
+    for outside in (False, True):
+        padded = np.pad(mask, pad, constant_values=outside)
+        ref = ndimage.binary_dilation(ndimage.binary_erosion(padded, st, border_value=int(outside)), st)
+        ref = ref[pad:-pad, pad:-pad]
+        assert np.array_equal(raster.open_disk(mask, diameter, outside=outside), ref)
+        monkeypatch.setattr(raster, "SMALL_LAYER_PX", 0)
+        assert np.array_equal(raster.open_disk(mask, diameter, outside=outside), ref)
+        monkeypatch.undo()
+
+
 @pytest.mark.parametrize("diameter", range(1, 15))
 def test_a_disk_spans_its_diameter_and_fits_walls_as_wide(diameter):
     """A disk of N pixels is N across, and an opening keeps a wall N wide and removes one N - 1 wide."""

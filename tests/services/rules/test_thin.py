@@ -121,3 +121,42 @@ def test_edge_normals_across_tiles_match_scipy_filtering_the_whole_mask():
     uy, ux = thin.edge_normals(mask, rows, cols)
     assert ok.mean() > 0.95 and np.ptp(rows) > 2 * thin.NORMAL_TILE_PX and np.ptp(cols) > 2 * thin.NORMAL_TILE_PX
     assert np.allclose(uy[ok], gy[ok] / norm[ok], atol=1e-5) and np.allclose(ux[ok], gx[ok] / norm[ok], atol=1e-5)
+
+
+def _walked(mask, vy, vx, uy, ux, cap_px):
+    """One line at a time, one sample at a time, as the convention states it: nearest pixel t = 1, 2, ... along the
+    line (beyond the array void); material must be met within three samples; the width is the run of material
+    samples up to the next void one, over cap_px counting as cap_px + 1."""
+    ny, nx = mask.shape
+    widths, met = [], []
+    for y, x, dy, dx in zip(vy, vx, uy, ux):
+        samples = []
+        for t in range(1, 2 * cap_px + 4):
+            r, c = int(np.rint(y + t * dy)), int(np.rint(x + t * dx))
+            samples.append(bool(0 <= r < ny and 0 <= c < nx and mask[r, c]))
+        entry = next((i for i in range(3) if samples[i]), None)
+        met.append(entry is not None)
+        run = 0
+        if entry is not None:
+            while entry + run < len(samples) and samples[entry + run] and run <= cap_px:
+                run += 1
+        widths.append(float(min(run, cap_px + 1)) if entry is not None else float(cap_px + 1))
+    return np.array(widths), np.array(met)
+
+
+def test_the_sampled_width_is_the_run_of_material_met_along_each_line():
+    """The lines sampled all at once (thin._march) give, line for line, what walking each one sample by sample
+    gives, on random masks, points (some outside the array) and directions (some vanishing)."""
+    rng = np.random.default_rng(11)
+    for _ in range(60):
+        ny, nx = (int(v) for v in rng.integers(5, 60, 2))
+        mask = rng.random((ny, nx)) < rng.uniform(0.2, 0.9)
+        n = int(rng.integers(1, 120))
+        vy, vx = rng.integers(-3, ny + 3, n), rng.integers(-3, nx + 3, n)
+        angle = rng.uniform(0, 2 * np.pi, n)
+        uy, ux = np.sin(angle), np.cos(angle)
+        uy[rng.random(n) < 0.1] = 0.0
+        cap = int(rng.integers(1, 10))
+        width, met = thin._march(mask, vy, vx, uy, ux, cap)
+        ref_width, ref_met = _walked(mask, vy, vx, uy, ux, cap)
+        assert np.array_equal(met, ref_met) and np.array_equal(width, ref_width)
