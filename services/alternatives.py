@@ -310,7 +310,7 @@ def _merge_twins(results: list) -> list[Alternative | None]:
         first = merged[twin.of]
         if isinstance(first, Alternative):
             also = (*first.also_orientations, twin.orientation)
-            said = f"along {twin.orientation} its layers are these, {twin.turn}"
+            said = f"along {twin.orientation} it prints the same layers, {twin.turn} (checked once)"
             merged[twin.of] = replace(first, also_orientations=also, note="; ".join(filter(None, (first.note, said))),
                                       change=f"build it along {' or '.join((first.orientation, *also))} on the same "
                                              "printer")

@@ -225,7 +225,7 @@ def test_a_turn_whose_layers_are_another_turns_is_named_with_it_not_checked_agai
     side = sides[0]
     assert side.orientation == "+x" and side.also_orientations == ("+y",)
     assert side.change == "build it along +x or +y on the same printer"
-    assert "along +y its layers are these, mirrored across the diagonal" in side.note
+    assert "along +y it prints the same layers, mirrored across the diagonal (checked once)" in side.note
     on_y = _blockers(part, printer, "+y")
     assert side.blockers == len(on_y) and set(side.blockers_removed) == {f.rule for f in blockers} - {f.rule for f in on_y}
     x_shape = layers.build_layer_stack(layers.orient_part(part, "+x"), pixel_mm=printer.pixel_mm,
