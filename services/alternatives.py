@@ -100,7 +100,7 @@ def what_must_change(*, part: Part, printer: PrinterProfile, material: Material,
     deadline = time.monotonic() + budget_s
 
     stopped = set()
-    seen = _SameLayers(stack)
+    seen = _SameLayers(stack, [i for i, c in enumerate(candidates) if c[0] == "orientation"])
 
     def attempt(i: int, candidate) -> Alternative | _Twin | None:
         kind, cand_printer, cand_material, orientation = candidate
@@ -110,10 +110,12 @@ def what_must_change(*, part: Part, printer: PrinterProfile, material: Material,
                         orientation, before, blockers, material,
                         same_frame=orientation == settings.orientation and not scaled, factor=factor,
                         deadline=deadline, rules_s_per_work=rules_s_per_work,
-                        seen=(lambda sliced: seen.match(i, sliced)) if kind == "orientation" else None)
+                        seen=(i, seen) if kind == "orientation" else None)
         except _OutOfTime:
             stopped.add(i)
             return None  # not finished within the budget: not shown
+        finally:
+            seen.end(i)  # said already where its layers were kept; here for every other way out
 
     results = _tried_side_by_side(attempt, candidates, deadline, progress, at_once)
     # A twin of a turn left unfinished is unfinished too: it was never judged on its own.
@@ -278,26 +280,44 @@ class _Twin:
 class _SameLayers:
     """The layer stacks of the turns tried so far, so that a turn whose layers were already checked (the part's
     own, or an earlier turn's, turned or mirrored in the plane: ``layers.same_layers_turned``) is not checked
-    again. A twin does not wait for the turn it repeats: ``_merge_twins`` joins them once all have ended."""
+    again. A twin does not wait for the turn it repeats to end (``_merge_twins`` joins them once all have
+    ended), only for each earlier turn to have its layers kept (``keep``) or to end: two turns sliced side by side
+    (a wide lens on +x and +y) would otherwise each miss the other. The earlier never waits for a later one."""
 
-    def __init__(self, own: layers.LayerStack | None) -> None:
+    def __init__(self, own: layers.LayerStack | None, turns: Sequence[int]) -> None:
+        """``turns``: the candidates' indices that are turns. Each is waited for until ``end``: changes start in
+        order, so an earlier turn has always started when a later one asks, and ends in every way out."""
         self._own = own
-        self._lock = threading.Lock()
+        self._known = threading.Condition()
         self._stacks: dict[int, layers.LayerStack] = {}
+        self._slicing: set[int] = set(turns)
 
-    def match(self, i: int, stack: layers.LayerStack) -> object:
-        """Return ``_UNCHANGED``, a ``_Twin`` of an earlier turn, or None for layers not seen before."""
+    def end(self, i: int) -> None:
+        """Say that turn ``i`` has its layers, or will never have them (it did not fit, ran out of time, failed)."""
+        with self._known:
+            self._slicing.discard(i)
+            self._known.notify_all()
+
+    def known(self, i: int, stack: layers.LayerStack) -> object:
+        """Return ``_UNCHANGED`` (the part's own layers), a ``_Twin`` of an earlier turn, or None for layers not
+        seen before, once every earlier turn has its layers kept or has ended."""
         if self._own is not None and layers.same_layers_turned(self._own, stack):
             return _UNCHANGED
-        with self._lock:
+        with self._known:
+            self._known.wait_for(lambda: not any(j < i for j in self._slicing))
             earlier = sorted((j, s) for j, s in self._stacks.items() if j < i)
         for j, other in earlier:
             turn = layers.same_layers_turned(other, stack)
             if turn:
                 return _Twin(j, "", turn)
-        with self._lock:
-            self._stacks[i] = stack  # only layers not seen before: a later twin finds the first of its kind
         return None
+
+    def keep(self, i: int, stack: layers.LayerStack) -> None:
+        """Keep turn ``i``'s layers for the later turns (only layers not seen before, and only a turn whose rules
+        will run: one projected past the budget is never kept, so no later turn spends a comparison on it)."""
+        with self._known:
+            self._stacks[i] = stack
+        self.end(i)
 
 
 def _merge_twins(results: list) -> list[Alternative | None]:
@@ -362,10 +382,11 @@ def _projected_in_time(stack, rules_s_per_work: float | None, deadline: float | 
 
 def _try(part, kind, printer, material, orientation, before, blockers, own_material, *, same_frame: bool,
          factor: float | None = None, deadline: float | None = None, rules_s_per_work: float | None = None,
-         seen: Callable[[layers.LayerStack], object] | None = None) -> Alternative | _Twin | None:
+         seen: tuple[int, _SameLayers] | None = None) -> Alternative | _Twin | None:
     """Return what the check finds after the change, or None when the part still does not fit the printer
     (nothing else about it matters then; the build-fit check is cheap, the slicing and rules are not) or when
-    ``seen`` knows its layers as the part's own; a ``_Twin`` when ``seen`` knows them as another turn's."""
+    ``seen`` (this turn's index among the candidates, and the turns' layers so far) knows its layers as the
+    part's own; a ``_Twin`` when it knows them as another turn's."""
     from services.estimate import estimate_print
 
     oriented = layers.orient_part(part, orientation)
@@ -374,10 +395,13 @@ def _try(part, kind, printer, material, orientation, before, blockers, own_mater
         return None
     stack = layers.build_layer_stack(oriented, pixel_mm=printer.pixel_mm, layer_height_mm=printer.layer_height_mm,
                                      progress=_paced(deadline))
-    known = seen(stack) if seen is not None else None
-    if known is not None:
-        return None if known is _UNCHANGED else replace(known, orientation=orientation)
+    if seen is not None:
+        known = seen[1].known(seen[0], stack)
+        if known is not None:
+            return None if known is _UNCHANGED else replace(known, orientation=orientation)
     _projected_in_time(stack, rules_s_per_work, deadline)
+    if seen is not None:
+        seen[1].keep(seen[0], stack)
     rules = run_rules(stack=stack, part=oriented, printer=printer, progress=_paced(deadline))
     # A feature the printer's grid drops is not fixed: its blocker stands (same orientation, same frame).
     lost = lost_features(stack, blockers) if same_frame else []

@@ -269,3 +269,30 @@ def test_a_twin_of_a_turn_left_unfinished_is_named_unfinished(make_part):
     found = what_must_change(part=part, printer=printer, material=material, settings=CheckSettings(),
                              findings=_blockers(part, printer), budget_s=-1.0, unfinished=unfinished)
     assert found == [] and "build it along +y on the same printer" in unfinished
+
+
+def test_a_turn_sliced_before_its_earlier_twin_still_finds_it(make_part, monkeypatch):
+    """Side by side, +y can have its layers before +x (a wide part's turns take seconds to slice): it waits for +x's
+    layers instead of running its own rules, so the rules still run on +x only (here +x's slicing is held back)."""
+    import time
+
+    from services import alternatives
+
+    part = _crossed(make_part)
+    printer, material = PRINTERS["bay1-lcd-resin"], MATERIALS["standard-resin"]
+    slice_stack = layers.build_layer_stack
+
+    def slow_on_x(oriented, **kw):
+        stack = slice_stack(oriented, **kw)
+        if stack.shape[0] > stack.shape[1]:  # +x: the plate's 10 mm along y, its 3 mm height along x
+            time.sleep(0.5)
+        return stack
+
+    ran = []
+    monkeypatch.setattr(alternatives.layers, "build_layer_stack", slow_on_x)
+    monkeypatch.setattr(alternatives, "run_rules", lambda **kw: ran.append(kw["stack"].shape) or run_rules(**kw))
+    found = what_must_change(part=part, printer=printer, material=material, settings=CheckSettings(),
+                             findings=_blockers(part, printer), at_once=3)
+    sides = [a for a in found if a.kind == "orientation" and a.orientation in ("+x", "+y")]
+    assert len(sides) == 1 and sides[0].also_orientations == ("+y",), found
+    assert sum(shape[0] < shape[1] for shape in ran) == 0, ran  # +y's frame (x long) never reached the rules
