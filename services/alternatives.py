@@ -100,7 +100,8 @@ def what_must_change(*, part: Part, printer: PrinterProfile, material: Material,
     deadline = time.monotonic() + budget_s
 
     stopped = set()
-    seen = _SameLayers(stack, [i for i, c in enumerate(candidates) if c[0] == "orientation"])
+    seen = _SameLayers(stack, {i: layers.oriented_extent_mm(part, c[3]) for i, c in enumerate(candidates)
+                               if c[0] == "orientation"})
 
     def attempt(i: int, candidate) -> Alternative | _Twin | None:
         kind, cand_printer, cand_material, orientation = candidate
@@ -284,13 +285,16 @@ class _SameLayers:
     ended), only for each earlier turn to have its layers kept (``keep``) or to end: two turns sliced side by side
     (a wide lens on +x and +y) would otherwise each miss the other. The earlier never waits for a later one."""
 
-    def __init__(self, own: layers.LayerStack | None, turns: Sequence[int]) -> None:
-        """``turns``: the candidates' indices that are turns. Each is waited for until ``end``: changes start in
-        order, so an earlier turn has always started when a later one asks, and ends in every way out."""
+    def __init__(self, own: layers.LayerStack | None, turns: dict[int, tuple[float, float, float]]) -> None:
+        """``turns``: each turn's index among the candidates and its extent once turned (x, y, z). A later turn
+        waits only for earlier ones of its height and widths (the others cannot have its layers), each until
+        ``end``: changes start in order, so an earlier turn has always started when a later one asks, and ends
+        in every way out."""
         self._own = own
         self._known = threading.Condition()
         self._stacks: dict[int, layers.LayerStack] = {}
         self._slicing: set[int] = set(turns)
+        self._shape = {i: (z, sorted((x, y))) for i, (x, y, z) in turns.items()}
 
     def end(self, i: int) -> None:
         """Say that turn ``i`` has its layers, or will never have them (it did not fit, ran out of time, failed)."""
@@ -304,7 +308,7 @@ class _SameLayers:
         if self._own is not None and layers.same_layers_turned(self._own, stack):
             return _UNCHANGED
         with self._known:
-            self._known.wait_for(lambda: not any(j < i for j in self._slicing))
+            self._known.wait_for(lambda: not any(j < i and self._shape[j] == self._shape[i] for j in self._slicing))
             earlier = sorted((j, s) for j, s in self._stacks.items() if j < i)
         for j, other in earlier:
             turn = layers.same_layers_turned(other, stack)

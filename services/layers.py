@@ -62,6 +62,15 @@ def orient_part(part: Part, orientation: str) -> Part:
     return replace(part, vertices_mm=vertices)
 
 
+def oriented_extent_mm(part: Part, orientation: str) -> tuple[float, float, float]:
+    """Return the part's extent along x, y, z once turned to ``orientation`` (its own extents, permuted), without
+    turning it: two turns whose layers can be the same, turned in the plane, have the same height and the
+    same two widths."""
+    axes = np.abs(np.array(_ROTATIONS[orientation])).argmax(axis=1)
+    extent = part.bbox_mm
+    return tuple(float(extent[a]) for a in axes)
+
+
 def build_layer_stack(
     part: Part,
     *,

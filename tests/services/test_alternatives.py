@@ -296,3 +296,25 @@ def test_a_turn_sliced_before_its_earlier_twin_still_finds_it(make_part, monkeyp
     sides = [a for a in found if a.kind == "orientation" and a.orientation in ("+x", "+y")]
     assert len(sides) == 1 and sides[0].also_orientations == ("+y",), found
     assert sum(shape[0] < shape[1] for shape in ran) == 0, ran  # +y's frame (x long) never reached the rules
+
+
+def test_a_turn_waits_only_for_earlier_turns_of_its_height_and_widths():
+    """Layers can be the same, turned in the plane, only for turns of the same height and the same two widths:
+    a turn on its side does not wait for the part turned over to be sliced, but one of the same extents does,
+    until that one ends."""
+    import threading
+
+    from services import alternatives
+
+    stack = layers.LayerStack.from_masks([[[True]]], pixel_mm=0.05, layer_height_mm=0.05)
+    other_shape = alternatives._SameLayers(None, {0: (10.0, 10.0, 3.0), 1: (3.0, 10.0, 10.0)})
+    assert other_shape.known(1, stack) is None  # returns at once though turn 0 never ends
+
+    same_shape = alternatives._SameLayers(None, {0: (3.0, 10.0, 10.0), 1: (10.0, 3.0, 10.0)})
+    answered = threading.Event()
+    waiting = threading.Thread(target=lambda: (same_shape.known(1, stack), answered.set()))
+    waiting.start()
+    assert not answered.wait(0.3)  # still waiting for turn 0
+    same_shape.end(0)
+    assert answered.wait(5.0)
+    waiting.join()

@@ -553,3 +553,11 @@ def test_layers_turned_or_mirrored_in_the_plane_are_recognised_and_named():
     assert layers.same_layers_turned(a, LayerStack.from_masks(masks, pixel_mm=0.1, layer_height_mm=0.05)) is None
     # The same layers in another order are other layers: the stack is not turned over by a turn in the plane.
     assert layers.same_layers_turned(a, LayerStack.from_masks(masks[::-1], pixel_mm=0.05, layer_height_mm=0.05)) is None
+
+
+def test_a_turns_extent_is_the_turned_parts_without_turning_it(make_part):
+    """Each orientation's extent read from the part's own (permuted) equals the extent of the part turned."""
+    box = trimesh.creation.box(extents=(7.0, 3.0, 1.5))
+    part = make_part(box, name="box.stl")
+    for orientation in ("+z", "-z", "+x", "-x", "+y", "-y"):
+        assert np.allclose(layers.oriented_extent_mm(part, orientation), orient_part(part, orientation).bbox_mm)
