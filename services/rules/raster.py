@@ -100,8 +100,9 @@ def dilate_disk(mask: np.ndarray, diameter_px: int) -> np.ndarray:
 
 
 # Under this many pixels a layer is opened with OpenCV's erode and dilate and the disk as a kernel: the packed
-# words' dozens of shifts cost more in calls than in pixels there (a plate on its side: 581 layers of 604 x 84
-# pixels, 0.35 -> 0.05 s). Both give the same pixels (tests/services/rules/test_raster.py).
+# words' dozens of shifts cost more in calls than in pixels there (a plate on its side, 604 x 84 pixels a layer:
+# 80-120 against 120-230 us a call, 0.35 -> 0.23 s over its 1,162 calls in a profile). Both give the same pixels
+# (tests/services/rules/test_raster.py).
 SMALL_LAYER_PX = 1 << 18
 
 
@@ -122,7 +123,8 @@ def _open_with_kernel(mask: np.ndarray, rows, pad: int, outside: bool) -> np.nda
     kernel = np.zeros((2 * reach + 1, 2 * reach + 1), np.uint8)
     for dy, a, b in rows:
         kernel[reach + dy, reach + a:reach + b + 1] = 1
-    work = cv2.copyMakeBorder(mask.view(np.uint8), pad, pad, pad, pad, cv2.BORDER_CONSTANT, value=int(outside))
+    solid = mask.view(np.uint8) if mask.dtype == bool else (mask != 0).view(np.uint8)  # 0 / 1, as the result
+    work = cv2.copyMakeBorder(solid, pad, pad, pad, pad, cv2.BORDER_CONSTANT, value=int(outside))
     eroded = cv2.erode(work, kernel, anchor=(reach, reach), borderType=cv2.BORDER_CONSTANT, borderValue=int(outside))
     opened = cv2.dilate(eroded, kernel[::-1, ::-1].copy(), anchor=(reach, reach), borderType=cv2.BORDER_CONSTANT,
                         borderValue=0)
