@@ -24,7 +24,7 @@ from services.requirement_check import check_requirements
 from services.target_changes import changes_for_targets
 from services.safety import cautions_for
 from services.settings import CheckSettings
-from services.stages import Progress, Stages
+from services.stages import EitherBranch, Progress, Stages
 from services.units_physics import units_findings
 
 if TYPE_CHECKING:
@@ -155,27 +155,31 @@ def build_report(*, part: Part, printer: PrinterProfile, material: Material,
 def _rules_estimate_optics(stages: Stages, *, part, oriented, stack, printer, material, settings, calibration,
                            concurrent: bool):
     """Return (rules, estimate, optics, prepared views): rules then estimate (it needs their support volume),
-    optics and the finding-free half of the pictures beside them.
+    optics beside them, and the finding-free half of the pictures in whichever branch ends its own work first.
 
     Both branches only read the stack and the part. Whether run side by side or in order, the
     outcome is the same, errors included (see Stages.side_by_side).
     """
     solid = _has_solid(stack)
+    views = EitherBranch(stages, "views", lambda p: prepare_views(oriented, stack))
 
     def printability():
         rules = stages.run("rules", lambda p: run_rules(stack=stack, part=oriented, printer=printer, progress=p))
         _solid_or_refuse(stack, part, printer)
-        return rules, stages.run("estimate", lambda p: _estimate(stack, oriented, printer, material, settings, rules,
-                                                                 calibration) if solid else None)
+        estimate = stages.run("estimate", lambda p: _estimate(stack, oriented, printer, material, settings, rules,
+                                                              calibration) if solid else None)
+        views.take()
+        return rules, estimate
 
     def optics():
         seen = stages.run("optics", lambda p: _optics(oriented, stack, printer, material, settings, p) if solid else None)
-        return seen, stages.run("views", lambda p: prepare_views(oriented, stack))
+        views.take()
+        return seen
 
-    (rules, estimate), (seen, prepared) = (stages.side_by_side(printability, optics) if concurrent
-                                           else (printability(), optics()))
+    (rules, estimate), seen = (stages.side_by_side(printability, optics) if concurrent
+                               else (printability(), optics()))
     release_free_heap()  # before the pictures and the tried changes: what the two branches freed
-    return rules, estimate, seen, prepared
+    return rules, estimate, seen, views.result()
 
 
 def _rules_pace(stages: Stages, stack) -> float | None:

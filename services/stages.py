@@ -128,6 +128,32 @@ class Stages:
                 self.cancel.set()
 
 
+class EitherBranch:
+    """A stage either of two side-by-side branches may run: the first to call ``take`` when its own work is done
+    runs it, the other goes on at once. The shorter branch then carries it (a plate's rules end seconds before its
+    optics; a lens's optics before its rules), and the outcome is the same whichever runs it."""
+
+    def __init__(self, stages: Stages, name: str, step: Callable[[Callable[[float], None]], object]) -> None:
+        self._stages, self._name, self._step = stages, name, step
+        self._lock = threading.Lock()
+        self._taken = False
+        self._value: object = None
+
+    def take(self) -> None:
+        """Run the stage here unless the other branch has taken it."""
+        with self._lock:
+            if self._taken:
+                return
+            self._taken = True
+        self._value = self._stages.run(self._name, self._step)
+
+    def result(self) -> object:
+        """Return the stage's value once both branches have ended (one of them ran it)."""
+        if not self._taken:
+            raise RuntimeError(f"stage {self._name!r} was never taken by either branch")
+        return self._value
+
+
 def _started(pool: ThreadPoolExecutor, branch: Callable[[], object]) -> Future:
     """Submit a branch; a thread that cannot start (its stack is past the memory bound) is a MemoryError."""
     try:

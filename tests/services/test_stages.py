@@ -191,3 +191,36 @@ def test_a_failed_branch_frees_its_arrays_without_waiting_for_a_garbage_collecti
         assert held[0]() is None
     finally:
         gc.enable()
+
+
+def test_a_stage_either_branch_may_run_is_run_once_by_the_branch_that_ends_first():
+    """The branch whose own work ends first runs the shared stage; the other goes on without it; it runs once, is
+    timed, and its value is there after both end, whichever branch ran it."""
+    from services.stages import EitherBranch
+
+    for slow_first in (True, False):
+        stages = Stages(SHARES, None)
+        ran: list[str] = []
+        shared = EitherBranch(stages, "d", lambda p: ran.append(threading.current_thread().name) or "drawn")
+        slow_done = threading.Event()
+
+        def slow():
+            assert slow_done.wait(5)
+            shared.take()
+            return "slow"
+
+        fast_thread: list[str] = []
+
+        def fast():
+            fast_thread.append(threading.current_thread().name)
+            shared.take()  # runs it: the slow branch is still busy
+            slow_done.set()
+            return "fast"
+
+        branches = (slow, fast) if slow_first else (fast, slow)
+        assert stages.side_by_side(*branches) == tuple(b.__name__ for b in branches)
+        assert shared.result() == "drawn" and ran == fast_thread and "d" in stages.timings_s
+
+    never = EitherBranch(Stages(SHARES, None), "d", lambda p: None)
+    with pytest.raises(RuntimeError):
+        never.result()
