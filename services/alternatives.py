@@ -111,7 +111,9 @@ def what_must_change(*, part: Part, printer: PrinterProfile, material: Material,
                         orientation, before, blockers, material,
                         same_frame=orientation == settings.orientation and not scaled, factor=factor,
                         deadline=deadline, rules_s_per_work=rules_s_per_work,
-                        seen=(i, seen) if kind == "orientation" else None)
+                        seen=(i, seen) if kind == "orientation" else None,
+                        turned_from=stack if kind == "orientation" and {orientation, settings.orientation} == {"+z", "-z"}
+                        else None)
         except _OutOfTime:
             stopped.add(i)
             return None  # not finished within the budget: not shown
@@ -386,19 +388,23 @@ def _projected_in_time(stack, rules_s_per_work: float | None, deadline: float | 
 
 def _try(part, kind, printer, material, orientation, before, blockers, own_material, *, same_frame: bool,
          factor: float | None = None, deadline: float | None = None, rules_s_per_work: float | None = None,
-         seen: tuple[int, _SameLayers] | None = None) -> Alternative | _Twin | None:
+         seen: tuple[int, _SameLayers] | None = None,
+         turned_from: layers.LayerStack | None = None) -> Alternative | _Twin | None:
     """Return what the check finds after the change, or None when the part still does not fit the printer
     (nothing else about it matters then; the build-fit check is cheap, the slicing and rules are not) or when
     ``seen`` (this turn's index among the candidates, and the turns' layers so far) knows its layers as the
-    part's own; a ``_Twin`` when it knows them as another turn's."""
+    part's own; a ``_Twin`` when it knows them as another turn's. ``turned_from``, the part's own stack when this
+    change turns it over: its layers are read from it where that is exact (``layers.turned_over``), not sliced."""
     from services.estimate import estimate_print
 
     oriented = layers.orient_part(part, orientation)
     fit, _ = check_build_fit(oriented, printer)
     if any(f.severity == "blocker" for f in fit):
         return None
-    stack = layers.build_layer_stack(oriented, pixel_mm=printer.pixel_mm, layer_height_mm=printer.layer_height_mm,
-                                     progress=_paced(deadline))
+    stack = layers.turned_over(turned_from, oriented) if turned_from is not None else None
+    if stack is None:
+        stack = layers.build_layer_stack(oriented, pixel_mm=printer.pixel_mm,
+                                         layer_height_mm=printer.layer_height_mm, progress=_paced(deadline))
     if seen is not None:
         known = seen[1].known(seen[0], stack)
         if known is not None:

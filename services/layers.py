@@ -278,6 +278,43 @@ def same_layers_turned(a: LayerStack, b: LayerStack) -> str | None:
     return standing[0]
 
 
+def turned_over(stack: LayerStack, part: Part) -> LayerStack | None:
+    """Return the stack of ``part`` turned over (about x: "+z" to "-z" or back), read from its own ``stack``, or
+    None where that is not exact.
+
+    Turned over, y becomes -y and z becomes the height less z. Where the height is a whole number of layers,
+    the turned part's layer mid-planes are the part's own, in reverse order, and the pixel grid, anchored at
+    multiples of the pixel, is its own mirrored across x: each layer is a stored raster with its rows reversed
+    (no slicing; bit for bit what slicing the turned part gives, tests/services/test_layers.py). Elsewhere the
+    mid-planes fall between the part's own and the part must be sliced again.
+    """
+    dz = stack.layer_height_mm
+    z = np.asarray(part.vertices_mm)[np.asarray(part.faces).reshape(-1), 2]  # the triangles' own corners only
+    whole = float(z.max() - z.min()) / dz
+    if abs(whole - round(whole)) > 1e-9 * max(1.0, whole) or round(whole) != stack.count:
+        return None
+    ny = stack.shape[0]
+    index = stack._index[::-1]
+    distinct, first_seen = np.unique(index, return_index=True)
+    renumbered = np.empty(len(stack._packed), dtype=np.int64)
+    renumbered[distinct] = np.argsort(np.argsort(first_seen))  # in order of first appearance, as a builder numbers
+    packed: list[bytes] = [b""] * len(stack._packed)
+    boxes = np.zeros_like(stack._boxes)
+    for d, (r0, b0, rows, row_bytes) in enumerate(stack._boxes.tolist()):
+        box = np.frombuffer(zlib.decompress(stack._packed[d]), dtype=np.uint8).reshape(rows, row_bytes)
+        packed[renumbered[d]] = zlib.compress(np.ascontiguousarray(box[::-1]).tobytes(), 1)
+        boxes[renumbered[d]] = (ny - r0 - rows if rows else 0, b0, rows, row_bytes)
+    ox, oy, oz = stack.origin_mm
+    flipped = [a[::-1].copy() for a in (stack.area_mm2, stack.perimeter_mm, stack.thickness_mm)]
+    new_index = renumbered[index].astype(stack._index.dtype)
+    for a in (*flipped, new_index):
+        a.setflags(write=False)
+    first_row = -(round(oy / stack.pixel_mm) + ny)  # the grid's corner in whole pixels, as _Grid places it
+    return replace(stack, origin_mm=(ox, float(np.float64(first_row) * stack.pixel_mm), oz), area_mm2=flipped[0],
+                   perimeter_mm=flipped[1], thickness_mm=flipped[2], _packed=tuple(packed), _boxes=boxes,
+                   _index=new_index)
+
+
 def _check_grid_sizes(pixel_mm: float, layer_height_mm: float) -> None:
     for value in (pixel_mm, layer_height_mm):
         if isinstance(value, bool) or not (isinstance(value, numbers.Real) and math.isfinite(value) and value > 0):

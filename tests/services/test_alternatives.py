@@ -318,3 +318,36 @@ def test_a_turn_waits_only_for_earlier_turns_of_its_height_and_widths():
     same_shape.end(0)
     assert answered.wait(5.0)
     waiting.join()
+
+
+def test_turned_over_the_parts_layers_are_read_from_its_own_not_sliced_again(make_part, monkeypatch):
+    """A plate 3 mm tall with a thin fin on top (a whole number of the printer's layers): turned over, its layers are
+    its own reversed and mirrored, so with its own stack given the slicer runs once less and the suggestions are
+    the same as when every change is sliced."""
+    from services import alternatives
+
+    plate = trimesh.creation.box(extents=(10, 10, 1))
+    plate.apply_translation((0, 0, 0.5))
+    fin = trimesh.creation.box(extents=(0.1, 6, 2))
+    fin.apply_translation((0, 1, 2.0))
+    part = make_part(trimesh.boolean.union([plate, fin], engine="manifold"), name="fin-on-top.stl")
+    printer, material = PRINTERS["bay1-lcd-resin"], MATERIALS["standard-resin"]
+    own = layers.build_layer_stack(layers.orient_part(part, "+z"), pixel_mm=printer.pixel_mm,
+                                   layer_height_mm=printer.layer_height_mm)
+    blockers = _blockers(part, printer)
+    slice_stack = layers.build_layer_stack
+    runs = []
+    for stack in (None, own):
+        sliced = []
+        monkeypatch.setattr(alternatives.layers, "build_layer_stack",
+                            lambda oriented, **kw: sliced.append(1) or slice_stack(oriented, **kw))
+        found = what_must_change(part=part, printer=printer, material=material, settings=CheckSettings(),
+                                 findings=blockers, at_once=1, stack=stack)
+        runs.append((len(sliced), found))
+    (sliced_all, found_all), (sliced_fewer, found_fewer) = runs
+    assert sliced_fewer == sliced_all - 1 and found_fewer == found_all
+    monkeypatch.setattr(alternatives.layers, "build_layer_stack", slice_stack)
+    before = {f.rule for f in blockers}
+    read, cut = (alternatives._try(part, "orientation", printer, material, "-z", before, blockers, material,
+                                   same_frame=False, turned_from=turned_from) for turned_from in (own, None))
+    assert read is not None and read == cut  # the same blockers, cautions, removals, time and cost

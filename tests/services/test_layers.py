@@ -561,3 +561,35 @@ def test_a_turns_extent_is_the_turned_parts_without_turning_it(make_part):
     part = make_part(box, name="box.stl")
     for orientation in ("+z", "-z", "+x", "-x", "+y", "-y"):
         assert np.allclose(layers.oriented_extent_mm(part, orientation), orient_part(part, orientation).bbox_mm)
+
+
+def _stack_digest(stack) -> tuple:
+    """Everything a stack holds, layer by layer (rasters unpacked, so the storage's numbering does not count)."""
+    return (stack.count, stack.shape, stack.origin_mm, stack.area_mm2.tobytes(), stack.perimeter_mm.tobytes(),
+            stack.thickness_mm.tobytes(), tuple(stack.layer(k).tobytes() for k in range(stack.count)),
+            [run[:2] for run in stack._spans()])
+
+
+@pytest.mark.parametrize("pixel_mm", [0.05, 0.1])
+def test_a_part_turned_over_reads_its_own_layers_reversed_and_mirrored(make_part, pixel_mm):
+    """A part 2 mm tall (a whole number of layers) with a stepped, off-centre, holed shape: its stack turned over
+    from its own equals, bit for bit, the stack of the part turned over and sliced again; turned over twice it is
+    its own; a part 1.93 mm tall (not whole layers) is not read this way."""
+    base = trimesh.creation.box(extents=(6.0, 4.0, 1.0))
+    base.apply_translation((0.4, 0.7, 0.5))
+    step = trimesh.creation.box(extents=(2.0, 1.5, 1.0))
+    step.apply_translation((1.1, 1.3, 1.5))
+    hole = trimesh.creation.cylinder(radius=0.6, height=3.0, sections=24)
+    hole.apply_translation((-1.2, 0.2, 1.0))
+    solid = trimesh.boolean.difference([trimesh.boolean.union([base, step], engine="manifold"), hole],
+                                       engine="manifold")
+    part = make_part(solid, name="stepped.stl")
+    up, down = orient_part(part, "+z"), orient_part(part, "-z")
+    own = build_layer_stack(up, pixel_mm=pixel_mm, layer_height_mm=0.05)
+    turned = layers.turned_over(own, up)
+    assert turned is not None
+    assert _stack_digest(turned) == _stack_digest(build_layer_stack(down, pixel_mm=pixel_mm, layer_height_mm=0.05))
+    assert _stack_digest(layers.turned_over(turned, down)) == _stack_digest(own)
+    shorter = make_part(trimesh.creation.box(extents=(6.0, 4.0, 1.93)), name="short.stl")
+    short_up = orient_part(shorter, "+z")
+    assert layers.turned_over(build_layer_stack(short_up, pixel_mm=pixel_mm, layer_height_mm=0.05), short_up) is None
