@@ -227,8 +227,9 @@ def _what_to_change(doc: _Document, alternatives: list[dict], unfinished: list[s
         cost = f"{a['cost_one']:.2f} {a.get('currency') or ''}".strip() if a.get("cost_one") is not None else "-"
         lines.append((a, f"{a['blockers']} blocker{'' if a['blockers'] == 1 else 's'}, {a['cautions']} caution"
                          f"{'' if a['cautions'] == 1 else 's'}; removes {removed}; one part {cost}"))
-    _tried_changes(doc, "What would remove the blockers", "Each change was tried: the part sliced again at that "
-                   "printer's grid and every design rule run again (the optics were not re-run).", lines)
+    _tried_changes(doc, "What would remove the blockers", "Each change was tried: the part's layers at that printer's "
+                   "grid (sliced again, or read from layers already made where they are the same, turned) and every "
+                   "design rule run on them (the optics were not re-run).", lines)
     if unfinished:
         if not lines:  # as on the page: the section stands, saying that nothing finished removes a blocker
             _heading(doc, "What would remove the blockers", room_mm=40)
