@@ -3,6 +3,8 @@
 For each candidate (the part turned over or onto its side on the same printer; another printer of the lab
 that can print the material; another printer and material of the lab) the printability part of the check
 is run again: orientation, slicing at that printer's grid, every design rule, build fit and the estimate.
+Layers already made are not made or checked twice: a part turned over reads its own (``layers.turned_over``),
+and a turn whose layers are the part's own or an earlier turn's, turned in the plane, takes that result.
 The best three that remove blockers are kept, with the numbers they would give. The optics are not re-run
 (a new material changes them; the suggestion says so).
 """
@@ -305,8 +307,8 @@ class _SameLayers:
             self._known.notify_all()
 
     def known(self, i: int, stack: layers.LayerStack) -> object:
-        """Return ``_UNCHANGED`` (the part's own layers), a ``_Twin`` of an earlier turn, or None for layers not
-        seen before, once every earlier turn has its layers kept or has ended."""
+        """Return ``_UNCHANGED`` (the part's own layers), (earlier turn, how its layers are turned to these), or
+        None for layers not seen before, once every earlier turn has its layers kept or has ended."""
         if self._own is not None and layers.same_layers_turned(self._own, stack):
             return _UNCHANGED
         with self._known:
@@ -315,14 +317,16 @@ class _SameLayers:
         for j, other in earlier:
             turn = layers.same_layers_turned(other, stack)
             if turn:
-                return _Twin(j, "", turn)
+                return j, turn
         return None
 
     def keep(self, i: int, stack: layers.LayerStack) -> None:
-        """Keep turn ``i``'s layers for the later turns (only layers not seen before, and only a turn whose rules
-        will run: one projected past the budget is never kept, so no later turn spends a comparison on it)."""
+        """Keep turn ``i``'s layers for the later turns of its height and widths (only layers not seen before, and
+        only a turn whose rules will run: one projected past the budget is never kept, so no later turn spends a
+        comparison on it); none later: nothing is held."""
         with self._known:
-            self._stacks[i] = stack
+            if any(j > i and shape == self._shape[i] for j, shape in self._shape.items()):
+                self._stacks[i] = stack
         self.end(i)
 
 
@@ -407,8 +411,10 @@ def _try(part, kind, printer, material, orientation, before, blockers, own_mater
                                          layer_height_mm=printer.layer_height_mm, progress=_paced(deadline))
     if seen is not None:
         known = seen[1].known(seen[0], stack)
+        if known is _UNCHANGED:
+            return None
         if known is not None:
-            return None if known is _UNCHANGED else replace(known, orientation=orientation)
+            return _Twin(known[0], orientation, known[1])
     _projected_in_time(stack, rules_s_per_work, deadline)
     if seen is not None:
         seen[1].keep(seen[0], stack)

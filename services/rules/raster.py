@@ -120,15 +120,25 @@ def _open_with_kernel(mask: np.ndarray, rows, pad: int, outside: bool) -> np.nda
     """``open_disk`` by OpenCV: erode with the disk's offsets, dilate with them reflected (a Minkowski sum), on
     the mask padded with ``outside`` as far as the words' way pads it."""
     reach = _reach(rows) - 1
-    kernel = np.zeros((2 * reach + 1, 2 * reach + 1), np.uint8)
-    for dy, a, b in rows:
-        kernel[reach + dy, reach + a:reach + b + 1] = 1
+    kernel, reflected = _disk_kernels(rows)
     solid = mask.view(np.uint8) if mask.dtype == bool else (mask != 0).view(np.uint8)  # 0 / 1, as the result
     work = cv2.copyMakeBorder(solid, pad, pad, pad, pad, cv2.BORDER_CONSTANT, value=int(outside))
     eroded = cv2.erode(work, kernel, anchor=(reach, reach), borderType=cv2.BORDER_CONSTANT, borderValue=int(outside))
-    opened = cv2.dilate(eroded, kernel[::-1, ::-1].copy(), anchor=(reach, reach), borderType=cv2.BORDER_CONSTANT,
-                        borderValue=0)
+    opened = cv2.dilate(eroded, reflected, anchor=(reach, reach), borderType=cv2.BORDER_CONSTANT, borderValue=0)
     return opened[pad:pad + mask.shape[0], pad:pad + mask.shape[1]].view(bool)
+
+
+@lru_cache(maxsize=64)
+def _disk_kernels(rows: tuple[tuple[int, int, int], ...]) -> tuple[np.ndarray, np.ndarray]:
+    """Return the disk (``disk_rows``) as an OpenCV kernel centred on its reach, and the kernel reflected."""
+    reach = _reach(rows) - 1
+    kernel = np.zeros((2 * reach + 1, 2 * reach + 1), np.uint8)
+    for dy, a, b in rows:
+        kernel[reach + dy, reach + a:reach + b + 1] = 1
+    reflected = np.ascontiguousarray(kernel[::-1, ::-1])
+    for k in (kernel, reflected):
+        k.setflags(write=False)  # cached: shared by every call
+    return kernel, reflected
 
 
 def _erode_words(words: np.ndarray, rows) -> np.ndarray:
