@@ -13,7 +13,9 @@ from __future__ import annotations
 import math
 import numbers
 import zlib
+from collections import deque
 from collections.abc import Callable, Iterator, Sequence
+from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass, field, replace
 
 import numpy as np
@@ -38,6 +40,7 @@ MAX_PIXELS_PER_LAYER = 1 << 26  # 8192^2: 200 mm at 25 um; keeps the int32 count
 MAX_LAYERS = 100_000
 _MAX_PAIRS = 1_000_000          # (triangle, layer) pairs per slicing call: bounds peak memory (bench section 7)
 _MAX_ACC_BYTES = 64 << 20       # int8 winding accumulator per chunk of layers
+_KEPT_WAITING = 8               # packed boxes waiting at most for the keeper's thread to deflate them
 _VERTICAL_TOL_PX = 1e-3         # a face drifting less than this over its height counts as vertical
 _PROGRESS_STEPS = 32
 _ORIENTED_TOL_MM = 1e-6
@@ -83,22 +86,26 @@ def build_layer_stack(
     grid = _Grid.around(tris, pixel_mm, part.name)
     count = _layer_count(float(tris[:, :, 2].max()), layer_height_mm, part.name)
     heights = (np.arange(count) + 0.5) * layer_height_mm
-    normals = _normals(tris)
-    todo = np.flatnonzero(_changed_layers(tris, normals, heights, _VERTICAL_TOL_PX * pixel_mm))
-    slicer = _Slicer(tris, normals, heights)
-    del tris, normals
-    builder = _StackBuilder((grid.ny, grid.nx))
+    slicer = _Slicer(tris, heights)
+    # Any vertex of the part may start a new layer: the part's own (merged) vertices are fewer than the soup's
+    # corners, and one it does not use only marks a layer for slicing that then equals the one below.
+    todo = np.flatnonzero(slicer.changed_layers(part.vertices_mm[:, 2], _VERTICAL_TOL_PX * pixel_mm))
+    del tris
     report = _Throttle(progress)
-    for ks in _chunks(todo, slicer.pairs_per_layer(count), grid.layers_per_chunk()):
-        rasters = _winding_numbers(*slicer.cut(ks), len(ks), grid)
-        for k, raster in zip(ks.tolist(), rasters):
-            builder.repeat(k - builder.count)
-            builder.add(raster)
-        del rasters
-        report(builder.count / count)
-    builder.repeat(count - builder.count)
+    with ThreadPoolExecutor(max_workers=1, thread_name_prefix="phasewright-layers") as keeper:
+        builder = _StackBuilder((grid.ny, grid.nx), keeper)
+        canvas = _Canvas(grid)
+        for ks in _chunks(todo, slicer.pairs_per_layer(count), grid.layers_per_chunk()):
+            rasters = _winding_numbers(*slicer.cut(ks), len(ks), grid, canvas)
+            for k, raster in zip(ks.tolist(), rasters):
+                builder.repeat(k - builder.count)
+                builder.add(raster)
+            del rasters
+            report(builder.count / count)
+        builder.repeat(count - builder.count)
+        stack = builder.finish(pixel_mm, layer_height_mm, (grid.x0, grid.y0, 0.0))
     report(1.0)
-    return builder.finish(pixel_mm, layer_height_mm, (grid.x0, grid.y0, 0.0))
+    return stack
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -392,31 +399,6 @@ def _normals(tris: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     )
 
 
-def _changed_layers(tris: np.ndarray, normals: tuple, heights: np.ndarray, tol_mm: float) -> np.ndarray:
-    """Return a bool per layer: False where the slice provably equals the one below.
-
-    Layer k can differ from k-1 only if a vertex lies in (z_{k-1}, z_k] or a sloped face spans both
-    planes (bench section 4, dedupe). A face whose cross-section drifts less than tol_mm over its whole
-    height counts as vertical: float32 files tilt vertical walls by ~1e-7, which would otherwise mark
-    every layer as changed.
-    """
-    count = len(heights)
-    changed = np.zeros(count + 1, dtype=bool)
-    changed[np.searchsorted(heights, tris[:, :, 2].ravel(), "right")] = True  # the slicer takes z_lo < h <= z_hi
-    n_x, n_y, n_z = normals
-    z = tris[:, :, 2]
-    z_min = np.minimum(np.minimum(z[:, 0], z[:, 1]), z[:, 2])
-    z_max = np.maximum(np.maximum(z[:, 0], z[:, 1]), z[:, 2])
-    sloped = (z_max - z_min) * np.abs(n_z) > tol_mm * np.hypot(n_x, n_y)
-    first = np.searchsorted(heights, z_min[sloped], "right") + 1
-    stop = np.searchsorted(heights, z_max[sloped], "right")
-    spans = stop > first
-    edges = np.bincount(first[spans], minlength=count + 1) - np.bincount(stop[spans], minlength=count + 1)
-    out = changed[:count] | (np.cumsum(edges)[:count] > 0)
-    out[0] = True
-    return out
-
-
 def _chunks(todo: np.ndarray, pairs: np.ndarray, max_layers: int) -> Iterator[np.ndarray]:
     """Yield groups of layer ids, in order, whose (triangle, layer) pairs stay under _MAX_PAIRS."""
     start, total = 0, 0
@@ -438,18 +420,22 @@ class _Slicer:
     cracks (bench section 2, MeshSlicer2).
     """
 
-    def __init__(self, tris: np.ndarray, normals: tuple, heights: np.ndarray) -> None:
-        order = np.argsort(tris[:, :, 2], axis=1, kind="stable")
-        # Each triangle's vertices in z order, gathered as whole rows of the flat soup: 2.4x faster than
-        # np.take_along_axis on 2M triangles (0.07 against 0.17 s, measured here), the same array.
-        order += 3 * np.arange(len(tris))[:, None]
-        st = np.take(tris.reshape(-1, 3), order.reshape(-1), axis=0).reshape(tris.shape)
-        first = np.searchsorted(heights, st[:, 0, 2], "right")
-        stop = np.searchsorted(heights, st[:, 2, 2], "right")
-        keep = np.flatnonzero(stop > first)
+    def __init__(self, tris: np.ndarray, heights: np.ndarray) -> None:
+        z = tris[:, :, 2]
+        first = np.searchsorted(heights, np.minimum(np.minimum(z[:, 0], z[:, 1]), z[:, 2]), "right")
+        stop = np.searchsorted(heights, np.maximum(np.maximum(z[:, 0], z[:, 1]), z[:, 2]), "right")
+        keep = np.flatnonzero(stop > first)  # only these cross a plane (a third of the 2M lens's triangles)
         self.first, self.stop = first[keep], stop[keep]
-        st = st[keep]
-        self.sign = _winding_sign(normals[0][keep], normals[1][keep], st)
+        order = np.argsort(z[keep], axis=1, kind="stable")
+        # The sort's parity turns the sorted corners' normal back into the file's winding.
+        parity = np.sign((order[:, 1] - order[:, 0]) * (order[:, 2] - order[:, 0]) * (order[:, 2] - order[:, 1]))
+        # Each kept triangle's vertices in z order, gathered as whole rows of the flat soup: 2.4x faster than
+        # np.take_along_axis on 2M triangles (0.07 against 0.17 s, measured here), the same array.
+        order += 3 * keep[:, None]
+        st = np.take(tris.reshape(-1, 3), order.reshape(-1), axis=0).reshape(-1, 3, 3)
+        self.normals = tuple(n * parity for n in _normals(st))
+        self.z_span = st[:, 2, 2] - st[:, 0, 2]
+        self.sign = _winding_sign(self.normals[0], self.normals[1], st)
         self.long = _edge_table(st[:, 0], st[:, 2])
         self.short = np.stack([_edge_table(st[:, 0], st[:, 1]), _edge_table(st[:, 1], st[:, 2])], axis=1)
         self.short = self.short.reshape(-1, 5)  # row 2t: A-B of triangle t, row 2t + 1: B-C
@@ -459,6 +445,26 @@ class _Slicer:
         self._first_sorted = self.first[self._order]
         self._next = 0
         self._active = np.zeros(0, dtype=np.int64)
+
+    def changed_layers(self, vertex_z_mm: np.ndarray, tol_mm: float) -> np.ndarray:
+        """Return a bool per layer: False where the slice provably equals the one below.
+
+        Layer k can differ from k-1 only if a vertex lies in (z_{k-1}, z_k] or a sloped face spans both
+        planes (bench section 4, dedupe); only a face that crosses a plane can span two. A face whose
+        cross-section drifts less than tol_mm over its whole height counts as vertical: float32 files tilt
+        vertical walls by ~1e-7, which would otherwise mark every layer as changed.
+        """
+        count = len(self.heights)
+        changed = np.zeros(count + 1, dtype=bool)
+        changed[np.searchsorted(self.heights, vertex_z_mm, "right")] = True  # a cut takes z_lo < h <= z_hi
+        n_x, n_y, n_z = self.normals
+        sloped = self.z_span * np.abs(n_z) > tol_mm * np.hypot(n_x, n_y)
+        first, stop = self.first[sloped] + 1, self.stop[sloped]
+        spans = stop > first
+        edges = np.bincount(first[spans], minlength=count + 1) - np.bincount(stop[spans], minlength=count + 1)
+        out = changed[:count] | (np.cumsum(edges)[:count] > 0)
+        out[0] = True
+        return out
 
     def pairs_per_layer(self, count: int) -> np.ndarray:
         """Return how many triangles cross each layer's plane."""
@@ -515,8 +521,35 @@ def _winding_sign(n_x: np.ndarray, n_y: np.ndarray, st: np.ndarray) -> np.ndarra
     return np.sign(along).astype(np.int8)
 
 
-def _winding_numbers(j, px, py, qx, qy, winding, layers: int, grid: _Grid) -> np.ndarray:
-    """Return int8 (layers, ny, nx) winding numbers at the pixel centres; non-zero is solid.
+class _Canvas:
+    """One int8 winding accumulator for every chunk of a slicing, zeroed where the last chunk wrote.
+
+    A fresh 64 MB array per chunk is mapped anew and pays a page fault for every 4 kB it touches."""
+
+    def __init__(self, grid: _Grid) -> None:
+        self.plane = (grid.ny + 1) * grid.nx
+        self.grid = grid
+        self.flat = np.zeros(grid.layers_per_chunk() * self.plane, dtype=np.int8)
+        self.dirty: tuple[int, int, int, int] | None = None  # layers, first row, first and end column
+
+    def take(self, layers: int) -> np.ndarray:
+        """Return a zeroed (layers, ny + 1, nx) view; the previous one is overwritten."""
+        if self.dirty is not None:
+            n, r0, c0, c1 = self.dirty
+            self._view(n)[:, r0:, c0:c1] = 0
+            self.dirty = None
+        return self._view(layers)
+
+    def wrote(self, layers: int, r0: int, c0: int, c1: int) -> None:
+        self.dirty = (layers, r0, c0, c1)
+
+    def _view(self, layers: int) -> np.ndarray:
+        return self.flat[:layers * self.plane].reshape(layers, self.grid.ny + 1, self.grid.nx)
+
+
+def _winding_numbers(j, px, py, qx, qy, winding, layers: int, grid: _Grid, canvas: _Canvas) -> np.ndarray:
+    """Return int8 (layers, ny, nx) winding numbers at the pixel centres, a view of ``canvas`` valid until its
+    next use; non-zero is solid.
 
     Each segment adds its winding at the first pixel row above where it crosses each pixel-centre
     column in [x_min, x_max) (half-open, so a shared vertex counts once); a prefix sum up the rows
@@ -533,10 +566,12 @@ def _winding_numbers(j, px, py, qx, qy, winding, layers: int, grid: _Grid) -> np
     col = np.repeat(lo - np.cumsum(cnt) + cnt, cnt) + np.arange(s.size)
     y = py[s] + (grid.x_centres[col] - px[s]) * slope[s]
     row = np.clip(np.floor((y - grid.y0) / grid.px - 0.5).astype(np.int64) + 1, 0, grid.ny)
-    acc = np.zeros((layers, grid.ny + 1, grid.nx), dtype=np.int8)
+    acc = canvas.take(layers)
     np.add.at(acc.reshape(-1), (j[s] * (grid.ny + 1) + row) * grid.nx + col, winding[s])
     if s.size:
-        _prefix_rows(acc, int(row.min()), min(int(row.max()), grid.ny - 1), int(col.min()), int(col.max()) + 1)
+        r0, c0, c1 = int(row.min()), int(col.min()), int(col.max()) + 1
+        canvas.wrote(layers, r0, c0, c1)
+        _prefix_rows(acc, r0, min(int(row.max()), grid.ny - 1), c0, c1)
     return acc[:, : grid.ny]
 
 
@@ -557,14 +592,14 @@ class _StackBuilder:
     on) over its runs, so each new raster only touches the pixels that changed from the one below.
     """
 
-    def __init__(self, shape: tuple[int, int]) -> None:
+    def __init__(self, shape: tuple[int, int], keeper: ThreadPoolExecutor | None = None) -> None:
         self.shape = (int(shape[0]), int(shape[1]))
         self.count = 0
-        self.packed: list[bytes] = []
+        self.kept: list[Future | tuple[bytes, int, int]] = []  # per distinct raster: _kept(box), or its future
+        self.keeper = keeper
+        self.waiting: deque[Future] = deque()
         self.boxes: list[tuple[int, int, int, int]] = []
         self.last: tuple[tuple[int, int], np.ndarray] | None = None  # the top raster, still unpacked
-        self.area_px: list[int] = []
-        self.edges_px: list[int] = []
         self.run_lengths: list[int] = []
         self.columns = np.zeros(self.shape, dtype=np.int32)
 
@@ -576,13 +611,18 @@ class _StackBuilder:
             return
         self._switch(corner, box)
         self.last = (corner, box)
-        # Level 1 deflate costs ~1 ms for a 2400^2 layer and shrinks it 8-50x (runs of equal bytes).
-        self.packed.append(zlib.compress(box.tobytes(), 1))
         self.boxes.append((*corner, *box.shape))
-        self.area_px.append(int(np.bitwise_count(box).sum(dtype=np.int64)))
-        self.edges_px.append(_transitions(box))
         self.run_lengths.append(1)
         self.count += 1
+        if self.keeper is None:
+            self.kept.append(_kept(box))
+            return
+        # Deflating and counting read only the box and mostly release the GIL: the keeper's thread does them
+        # while this one slices on. A few boxes wait at most, so memory stays bounded if it falls behind.
+        while len(self.waiting) >= _KEPT_WAITING:
+            self.waiting.popleft().result()
+        self.kept.append(self.keeper.submit(_kept, box))
+        self.waiting.append(self.kept[-1])
 
     def repeat(self, n: int) -> None:
         """Append n more layers equal to the last one."""
@@ -592,16 +632,18 @@ class _StackBuilder:
 
     def finish(self, pixel_mm: float, layer_height_mm: float, origin_mm: tuple) -> LayerStack:
         self._switch((0, 0), np.zeros((0, 0), dtype=np.uint8))
-        index = np.repeat(np.arange(len(self.packed), dtype=np.int32), self.run_lengths)
-        area = np.asarray(self.area_px, dtype=np.float64)[index] * pixel_mm**2
-        perimeter = np.asarray(self.edges_px, dtype=np.float64)[index] * pixel_mm
+        kept = [k.result() if isinstance(k, Future) else k for k in self.kept]
+        packed = tuple(k[0] for k in kept)
+        index = np.repeat(np.arange(len(packed), dtype=np.int32), self.run_lengths)
+        area = np.asarray([k[1] for k in kept], dtype=np.float64).reshape(-1)[index] * pixel_mm**2
+        perimeter = np.asarray([k[2] for k in kept], dtype=np.float64).reshape(-1)[index] * pixel_mm
         thickness = (self.columns * layer_height_mm).astype(np.float32)
         for a in (area, perimeter, thickness, index):
             a.setflags(write=False)
         return LayerStack(
             pixel_mm=float(pixel_mm), layer_height_mm=float(layer_height_mm),
             origin_mm=tuple(float(v) for v in origin_mm), shape=self.shape, count=self.count,
-            area_mm2=area, perimeter_mm=perimeter, thickness_mm=thickness, _packed=tuple(self.packed),
+            area_mm2=area, perimeter_mm=perimeter, thickness_mm=thickness, _packed=packed,
             _boxes=np.asarray(self.boxes, dtype=np.int32).reshape(-1, 4), _index=index,
         )
 
@@ -617,16 +659,36 @@ class _StackBuilder:
         flips = _placed(*old, r0, r1, b0, b1) ^ new
         width = min(8 * (b1 - b0), self.shape[1] - 8 * b0)
         block, layer = self.columns[r0:r1, 8 * b0:8 * b0 + width], self.count
-        changed = np.flatnonzero(flips)
+        changed = _nonzero_bytes(flips)
         if changed.size * 8 > flips.size:  # most bytes changed: one dense pass is cheaper
             flips, new = (np.unpackbits(a, axis=1, count=width).view(bool) for a in (flips, new))
             np.subtract(block, layer, out=block, where=flips & new)
             np.add(block, layer, out=block, where=flips & ~new)
             return
-        byte, bit = np.nonzero(np.unpackbits(flips.ravel()[changed][:, None], axis=1))
-        flat = changed[byte]
-        now_on = (new.ravel()[flat] >> (7 - bit).astype(np.uint8)) & 1
-        block[flat // new.shape[1], flat % new.shape[1] * 8 + bit] += np.where(now_on, -layer, layer)
+        hits = np.flatnonzero(np.unpackbits(flips.reshape(-1)[changed]))  # 8 bits per changed byte, high first
+        flat, bit = changed[hits >> 3], (hits & 7).astype(np.uint8)
+        now_on = (new.reshape(-1)[flat] >> (7 - bit)) & 1
+        row, col = np.divmod(flat, new.shape[1])
+        where = (row + r0) * self.shape[1] + (col + b0) * 8 + bit  # each pixel once: a flat put, no np.add.at
+        columns = self.columns.reshape(-1)
+        columns[where] += np.where(now_on, -layer, layer).astype(np.int32)
+
+
+def _kept(box: np.ndarray) -> tuple[bytes, int, int]:
+    """Return (deflated bytes, solid pixels, solid/void transitions) of a packed solid box."""
+    # Level 1 deflate costs ~1 ms for a 2400^2 layer and shrinks it 8-50x (runs of equal bytes).
+    return zlib.compress(box.tobytes(), 1), int(np.bitwise_count(box).sum(dtype=np.int64)), _transitions(box)
+
+
+def _nonzero_bytes(a: np.ndarray) -> np.ndarray:
+    """Return the flat indices of a contiguous uint8 array's non-zero bytes, ascending: its 8-byte words are
+    tested first, so a sparse array is read once as words (np.flatnonzero on the bytes took 2.7 ms a layer on
+    a 4004^2 frame, 0.37 s of the 100 mm lens's slicing)."""
+    flat = a.reshape(-1)
+    whole = flat.size - flat.size % 8
+    words = np.flatnonzero(flat[:whole].view(np.uint64))
+    candidates = np.concatenate([(words[:, None] * 8 + np.arange(8)).reshape(-1), np.arange(whole, flat.size)])
+    return candidates[flat[candidates] != 0]
 
 
 def _solid_box(packed: np.ndarray) -> tuple[tuple[int, int], np.ndarray]:

@@ -317,9 +317,9 @@ def test_float32_walls_are_vertical_for_dedupe(make_part):
     part = replace(part, vertices_mm=v.astype(np.float64))
     tris = part.triangles_mm
     heights = (np.arange(60) + 0.5) * PX
-    normals = layers._normals(tris)
-    strict = layers._changed_layers(tris, normals, heights, tol_mm=0.0)
-    tolerant = layers._changed_layers(tris, normals, heights, tol_mm=1e-3 * PX)
+    slicer = layers._Slicer(tris, heights)
+    strict = slicer.changed_layers(tris[:, :, 2].ravel(), tol_mm=0.0)
+    tolerant = slicer.changed_layers(tris[:, :, 2].ravel(), tol_mm=1e-3 * PX)
     assert strict.sum() > 1  # the rounding really does tilt some walls
     assert np.flatnonzero(tolerant).tolist() == [0]
     assert stack_of(part).distinct_count == 1
