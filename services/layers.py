@@ -96,10 +96,10 @@ def build_layer_stack(
         builder = _StackBuilder((grid.ny, grid.nx), keeper)
         canvas = _Canvas(grid)
         for ks in _chunks(todo, slicer.pairs_per_layer(count), grid.layers_per_chunk()):
-            rasters = _winding_numbers(*slicer.cut(ks), len(ks), grid, canvas)
+            rasters, (r0, c0) = _winding_numbers(*slicer.cut(ks), len(ks), grid, canvas)
             for k, raster in zip(ks.tolist(), rasters):
                 builder.repeat(k - builder.count)
-                builder.add(raster)
+                builder.add(raster, at=(r0, c0 // 8))
             del rasters
             report(builder.count / count)
         builder.repeat(count - builder.count)
@@ -547,9 +547,11 @@ class _Canvas:
         return self.flat[:layers * self.plane].reshape(layers, self.grid.ny + 1, self.grid.nx)
 
 
-def _winding_numbers(j, px, py, qx, qy, winding, layers: int, grid: _Grid, canvas: _Canvas) -> np.ndarray:
-    """Return int8 (layers, ny, nx) winding numbers at the pixel centres, a view of ``canvas`` valid until its
-    next use; non-zero is solid.
+def _winding_numbers(j, px, py, qx, qy, winding, layers: int, grid: _Grid,
+                     canvas: _Canvas) -> tuple[np.ndarray, tuple[int, int]]:
+    """Return int8 (layers, rows, columns) winding numbers at the pixel centres from (row, column) on, a view of
+    ``canvas`` valid until its next use, and that corner; non-zero is solid, and every layer is void outside
+    the part returned (the column is a multiple of 8: a whole byte once packed).
 
     Each segment adds its winding at the first pixel row above where it crosses each pixel-centre
     column in [x_min, x_max) (half-open, so a shared vertex counts once); a prefix sum up the rows
@@ -568,20 +570,24 @@ def _winding_numbers(j, px, py, qx, qy, winding, layers: int, grid: _Grid, canva
     row = np.clip(np.floor((y - grid.y0) / grid.px - 0.5).astype(np.int64) + 1, 0, grid.ny)
     acc = canvas.take(layers)
     np.add.at(acc.reshape(-1), (j[s] * (grid.ny + 1) + row) * grid.nx + col, winding[s])
-    if s.size:
-        r0, c0, c1 = int(row.min()), int(col.min()), int(col.max()) + 1
-        canvas.wrote(layers, r0, c0, c1)
-        _prefix_rows(acc, r0, min(int(row.max()), grid.ny - 1), c0, c1)
-    return acc[:, : grid.ny]
+    if not s.size:
+        return acc[:, :0, :0], (0, 0)
+    r0, c0, c1 = int(row.min()), int(col.min()) // 8 * 8, int(col.max()) + 1
+    canvas.wrote(layers, r0, c0, c1)
+    r1 = _prefix_rows(acc, r0, min(int(row.max()), grid.ny - 1), c0, c1)
+    return acc[:, r0:r1, c0:c1], (r0, c0)
 
 
-def _prefix_rows(acc: np.ndarray, r0: int, r1: int, c0: int, c1: int) -> None:
-    """Sum acc up the rows inside the box the crossings touch; everything outside it stays as it is."""
+def _prefix_rows(acc: np.ndarray, r0: int, r1: int, c0: int, c1: int) -> int:
+    """Sum acc up the rows inside the box the crossings touch; everything outside it stays as it is. Return
+    the end of the rows that may hold solid (below the accumulator's extra row)."""
     box = acc[:, :, c0:c1]
     for r in range(r0 + 1, r1 + 1):  # row-by-row adds on contiguous rows beat np.cumsum 2x (bench section 3)
         np.add(box[:, r], box[:, r - 1], out=box[:, r])
     if box[:, r1].any():  # an open mesh leaves a winding above its last crossing: carry it up
         box[:, r1 + 1:] = box[:, r1:r1 + 1]
+        return acc.shape[1] - 1
+    return r1 + 1
 
 
 class _StackBuilder:
@@ -603,13 +609,18 @@ class _StackBuilder:
         self.run_lengths: list[int] = []
         self.columns = np.zeros(self.shape, dtype=np.int32)
 
-    def add(self, raster: np.ndarray) -> None:
-        """Append one layer (non-zero is solid), sharing the stored raster when it equals the layer below."""
+    def add(self, raster: np.ndarray, at: tuple[int, int] = (0, 0)) -> None:
+        """Append one layer (non-zero is solid), sharing the stored raster when it equals the layer below.
+
+        ``raster`` may be the part of the layer from row at[0] and byte at[1] (pixel 8 at[1]) on, void
+        outside it."""
         corner, box = _solid_box(np.packbits(raster, axis=1))
+        if box.size:
+            corner = (corner[0] + at[0], corner[1] + at[1])
         if self.last and corner == self.last[0] and np.array_equal(box, self.last[1]):
             self.repeat(1)
             return
-        self._switch(corner, box)
+        self._switch(self.last, (corner, box), self.count)
         self.last = (corner, box)
         self.boxes.append((*corner, *box.shape))
         self.run_lengths.append(1)
@@ -618,7 +629,8 @@ class _StackBuilder:
             self.kept.append(_kept(box))
             return
         # Deflating and counting read only the box and mostly release the GIL: the keeper's thread does them
-        # while this one slices on. A few boxes wait at most, so memory stays bounded if it falls behind.
+        # while this one slices on (the column counts there too were no faster: they hold the GIL in small steps).
+        # A few boxes wait at most, so memory stays bounded if the keeper falls behind.
         while len(self.waiting) >= _KEPT_WAITING:
             self.waiting.popleft().result()
         self.kept.append(self.keeper.submit(_kept, box))
@@ -631,13 +643,14 @@ class _StackBuilder:
             self.count += n
 
     def finish(self, pixel_mm: float, layer_height_mm: float, origin_mm: tuple) -> LayerStack:
-        self._switch((0, 0), np.zeros((0, 0), dtype=np.uint8))
         kept = [k.result() if isinstance(k, Future) else k for k in self.kept]
+        self._switch(self.last, ((0, 0), np.zeros((0, 0), dtype=np.uint8)), self.count)
         packed = tuple(k[0] for k in kept)
         index = np.repeat(np.arange(len(packed), dtype=np.int32), self.run_lengths)
         area = np.asarray([k[1] for k in kept], dtype=np.float64).reshape(-1)[index] * pixel_mm**2
         perimeter = np.asarray([k[2] for k in kept], dtype=np.float64).reshape(-1)[index] * pixel_mm
-        thickness = (self.columns * layer_height_mm).astype(np.float32)
+        thickness = np.empty(self.shape, dtype=np.float32)  # products in float64, as cast: no full-frame temporary
+        np.multiply(self.columns, layer_height_mm, out=thickness, casting="same_kind")
         for a in (area, perimeter, thickness, index):
             a.setflags(write=False)
         return LayerStack(
@@ -647,9 +660,12 @@ class _StackBuilder:
             _boxes=np.asarray(self.boxes, dtype=np.int32).reshape(-1, 4), _index=index,
         )
 
-    def _switch(self, corner: tuple[int, int], box: np.ndarray) -> None:
-        """Subtract this layer's index where pixels switch on and add it where they switch off."""
-        old = self.last or (corner, box[:0, :0])
+    def _switch(self, below: tuple[tuple[int, int], np.ndarray] | None, raster: tuple[tuple[int, int], np.ndarray],
+                layer: int) -> None:
+        """Subtract ``layer`` where pixels switch on from the raster below to this one and add it where they
+        switch off."""
+        corner, box = raster
+        old = below or (corner, box[:0, :0])
         boxes = [(c, b) for c, b in (old, (corner, box)) if b.size]
         if not boxes:
             return
@@ -658,7 +674,7 @@ class _StackBuilder:
         new = _placed(corner, box, r0, r1, b0, b1)
         flips = _placed(*old, r0, r1, b0, b1) ^ new
         width = min(8 * (b1 - b0), self.shape[1] - 8 * b0)
-        block, layer = self.columns[r0:r1, 8 * b0:8 * b0 + width], self.count
+        block = self.columns[r0:r1, 8 * b0:8 * b0 + width]
         changed = _nonzero_bytes(flips)
         if changed.size * 8 > flips.size:  # most bytes changed: one dense pass is cheaper
             flips, new = (np.unpackbits(a, axis=1, count=width).view(bool) for a in (flips, new))
