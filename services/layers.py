@@ -40,6 +40,7 @@ MAX_PIXELS_PER_LAYER = 1 << 26  # 8192^2: 200 mm at 25 um; keeps the int32 count
 MAX_LAYERS = 100_000
 _MAX_PAIRS = 1_000_000          # (triangle, layer) pairs per slicing call: bounds peak memory (bench section 7)
 _MAX_ACC_BYTES = 64 << 20       # int8 winding accumulator per chunk of layers
+_SPLIT_TRIANGLES = 50_000       # a soup with twice as many is prepared for slicing in two halves at once
 _KEPT_WAITING = 8               # packed boxes waiting at most for the keeper's thread to deflate them
 _VERTICAL_TOL_PX = 1e-3         # a face drifting less than this over its height counts as vertical
 _PROGRESS_STEPS = 32
@@ -86,14 +87,14 @@ def build_layer_stack(
     grid = _Grid.around(tris, pixel_mm, part.name)
     count = _layer_count(float(tris[:, :, 2].max()), layer_height_mm, part.name)
     heights = (np.arange(count) + 0.5) * layer_height_mm
-    slicer = _Slicer(tris, heights)
-    # Any vertex of the part may start a new layer: the part's own (merged) vertices are fewer than the soup's
-    # corners, and one it does not use only marks a layer for slicing that then equals the one below.
-    todo = np.flatnonzero(slicer.changed_layers(part.vertices_mm[:, 2], _VERTICAL_TOL_PX * pixel_mm))
-    del tris
     report = _Throttle(progress)
-    with ThreadPoolExecutor(max_workers=1, thread_name_prefix="phasewright-layers") as keeper:
-        builder = _StackBuilder((grid.ny, grid.nx), keeper)
+    with ThreadPoolExecutor(max_workers=2, thread_name_prefix="phasewright-layers") as pool:
+        slicer = _Slicer(tris, heights, pool)
+        del tris  # the slicer keeps what it needs of the triangles that cross a plane
+        # Any vertex of the part may start a new layer: the part's own (merged) vertices are fewer than the
+        # soup's corners, and one it does not use only marks a layer for slicing that then equals the one below.
+        todo = np.flatnonzero(slicer.changed_layers(part.vertices_mm[:, 2], _VERTICAL_TOL_PX * pixel_mm))
+        builder = _StackBuilder((grid.ny, grid.nx), pool)
         canvas = _Canvas(grid)
         for ks in _chunks(todo, slicer.pairs_per_layer(count), grid.layers_per_chunk()):
             rasters, (r0, c0) = _winding_numbers(*slicer.cut(ks), len(ks), grid, canvas)
@@ -420,26 +421,15 @@ class _Slicer:
     cracks (bench section 2, MeshSlicer2).
     """
 
-    def __init__(self, tris: np.ndarray, heights: np.ndarray) -> None:
-        z = tris[:, :, 2]
-        first = np.searchsorted(heights, np.minimum(np.minimum(z[:, 0], z[:, 1]), z[:, 2]), "right")
-        stop = np.searchsorted(heights, np.maximum(np.maximum(z[:, 0], z[:, 1]), z[:, 2]), "right")
-        keep = np.flatnonzero(stop > first)  # only these cross a plane (a third of the 2M lens's triangles)
-        self.first, self.stop = first[keep], stop[keep]
-        order = np.argsort(z[keep], axis=1, kind="stable")
-        # The sort's parity turns the sorted corners' normal back into the file's winding.
-        parity = np.sign((order[:, 1] - order[:, 0]) * (order[:, 2] - order[:, 0]) * (order[:, 2] - order[:, 1]))
-        # Each kept triangle's vertices in z order, gathered as whole rows of the flat soup: 2.4x faster than
-        # np.take_along_axis on 2M triangles (0.07 against 0.17 s, measured here), the same array.
-        order += 3 * keep[:, None]
-        st = np.take(tris.reshape(-1, 3), order.reshape(-1), axis=0).reshape(-1, 3, 3)
-        self.normals = tuple(n * parity for n in _normals(st))
-        self.z_span = st[:, 2, 2] - st[:, 0, 2]
-        self.sign = _winding_sign(self.normals[0], self.normals[1], st)
-        self.long = _edge_table(st[:, 0], st[:, 2])
-        self.short = np.stack([_edge_table(st[:, 0], st[:, 1]), _edge_table(st[:, 1], st[:, 2])], axis=1)
-        self.short = self.short.reshape(-1, 5)  # row 2t: A-B of triangle t, row 2t + 1: B-C
-        self.b_z = st[:, 1, 2].copy()
+    def __init__(self, tris: np.ndarray, heights: np.ndarray, pool: ThreadPoolExecutor | None = None) -> None:
+        # Two halves of the soup prepared side by side where there are many triangles: the steps are whole-array
+        # numpy work that releases the GIL (sorts, gathers, arithmetic).
+        half = len(tris) // 2
+        spans = [(0, half), (half, len(tris))] if pool is not None and half >= _SPLIT_TRIANGLES else [(0, len(tris))]
+        tables = list((pool.map if len(spans) > 1 else map)(lambda span: _crossing_tables(tris, heights, *span), spans))
+        (self.first, self.stop, n_x, n_y, n_z, self.z_span, self.sign, self.long, self.short, self.b_z) = (
+            columns[0] if len(spans) == 1 else np.concatenate(columns) for columns in zip(*tables))
+        self.normals = (n_x, n_y, n_z)
         self.heights = heights
         self._order = np.argsort(self.first, kind="stable")
         self._first_sorted = self.first[self._order]
@@ -497,6 +487,26 @@ class _Slicer:
         t = np.repeat(live[sel], cnt)
         j = np.repeat(a[sel] - np.cumsum(cnt) + cnt, cnt) + np.arange(t.size)
         return t, j
+
+
+def _crossing_tables(tris: np.ndarray, heights: np.ndarray, lo: int, hi: int) -> tuple[np.ndarray, ...]:
+    """Return the slicer's tables for triangles lo..hi-1 that cross a plane: first and stop plane, normal x, y
+    and z, height, winding sign, long edge table, short edge tables (A-B, B-C of each in turn), B's height."""
+    z = tris[lo:hi, :, 2]
+    first = np.searchsorted(heights, np.minimum(np.minimum(z[:, 0], z[:, 1]), z[:, 2]), "right")
+    stop = np.searchsorted(heights, np.maximum(np.maximum(z[:, 0], z[:, 1]), z[:, 2]), "right")
+    keep = np.flatnonzero(stop > first)  # only these cross a plane (a third of the 2M lens's triangles)
+    order = np.argsort(z[keep], axis=1, kind="stable")
+    # The sort's parity turns the sorted corners' normal back into the file's winding.
+    parity = np.sign((order[:, 1] - order[:, 0]) * (order[:, 2] - order[:, 0]) * (order[:, 2] - order[:, 1]))
+    # Each kept triangle's vertices in z order, gathered as whole rows of the flat soup: 2.4x faster than
+    # np.take_along_axis on 2M triangles (0.07 against 0.17 s, measured here), the same array.
+    order += 3 * (keep + lo)[:, None]
+    st = np.take(tris.reshape(-1, 3), order.reshape(-1), axis=0).reshape(-1, 3, 3)
+    n_x, n_y, n_z = (n * parity for n in _normals(st))
+    short = np.stack([_edge_table(st[:, 0], st[:, 1]), _edge_table(st[:, 1], st[:, 2])], axis=1)
+    return (first[keep], stop[keep], n_x, n_y, n_z, st[:, 2, 2] - st[:, 0, 2], _winding_sign(n_x, n_y, st),
+            _edge_table(st[:, 0], st[:, 2]), short.reshape(-1, 5), st[:, 1, 2].copy())
 
 
 def _edge_table(lo: np.ndarray, hi: np.ndarray) -> np.ndarray:
@@ -628,7 +638,7 @@ class _StackBuilder:
         if self.keeper is None:
             self.kept.append(_kept(box))
             return
-        # Deflating and counting read only the box and mostly release the GIL: the keeper's thread does them
+        # Deflating and counting read only the box and mostly release the GIL: the keeper's threads do them
         # while this one slices on (the column counts there too were no faster: they hold the GIL in small steps).
         # A few boxes wait at most, so memory stays bounded if the keeper falls behind.
         while len(self.waiting) >= _KEPT_WAITING:
