@@ -131,23 +131,13 @@ def test_the_block_sums_count_every_pixel_centre_once(cell_mm, sub):
         assert (run.fill if sub == 1 else run.fine_fill) == pytest.approx(expected, abs=1e-12)
 
 
-@pytest.mark.parametrize("sub", [1, 3])
-def test_cells_read_from_each_runs_solid_box_count_as_the_whole_frame(sub):
-    """Cells read from a run's solid box (and the void pixel around it) give the fills and edge lengths of a plain
-    count over the whole frame: solid pixel centres per cell, and 4-neighbour solid/void transitions per cell, each
-    counted in the pixel before it (np.add.at), blobs in the middle and touching every side of the frame."""
-    rng = np.random.default_rng(11)
-    ny, nx = 41, 57
-    masks = []
-    for r0, r1, c0, c1 in ((5, 12, 7, 20), (0, 9, 30, 57), (30, 41, 0, 11), (14, 27, 40, 57), (0, 41, 0, 57)):
-        mask = np.zeros((ny, nx), bool)
-        mask[r0:r1, c0:c1] = rng.random((r1 - r0, c1 - c0)) < 0.6
-        masks.append(mask)
-    stack = LayerStack.from_masks(masks, pixel_mm=0.1, layer_height_mm=0.1, origin_mm=(-2.83, -2.01, 0.0))
-    grid = CellGrid.around(axis_mm=(0.07, -0.03), half_extent_mm=(2.9, 2.2), cell_mm=0.3)
+def _assert_cells_count_every_pixel(stack: LayerStack, masks: list, grid: CellGrid, sub: int) -> None:
+    """Assert each run's fills and edge lengths equal a plain count of its pixels: solid pixel centres per
+    (sub-)cell, and 4-neighbour solid/void transitions per cell, each counted in the pixel before it (np.add.at);
+    pixels outside the grid are not counted."""
     fine = grid.subdivided(sub)
-    rows = np.floor((stack.y_centres_mm - (grid.axis_mm[1] - grid.shape[0] / 2 * 0.3)) / fine.cell_mm + 1e-6)
-    cols = np.floor((stack.x_centres_mm - (grid.axis_mm[0] - grid.shape[1] / 2 * 0.3)) / fine.cell_mm + 1e-6)
+    rows = np.floor((stack.y_centres_mm - (grid.axis_mm[1] - grid.shape[0] / 2 * grid.cell_mm)) / fine.cell_mm + 1e-6)
+    cols = np.floor((stack.x_centres_mm - (grid.axis_mm[0] - grid.shape[1] / 2 * grid.cell_mm)) / fine.cell_mm + 1e-6)
     rows, cols = rows.astype(int), cols.astype(int)
 
     def per_cell(values):
@@ -166,5 +156,47 @@ def test_cells_read_from_each_runs_solid_box_count_as_the_whole_frame(sub):
         turns[:, :-1] += mask[:, 1:] != mask[:, :-1]
         turns[:-1, :] += mask[1:, :] != mask[:-1, :]
         fill, edge = (run.fill, run.edge_mm) if sub == 1 else (run.fine_fill, run.fine_edge_mm)
-        assert fill == pytest.approx(np.minimum(per_cell(mask) * (0.1 / fine.cell_mm) ** 2, 1.0), abs=1e-12)
-        assert edge == pytest.approx(per_cell(turns) * 0.1 * np.pi / 4, abs=1e-12)  # Crofton's pi / 4 per crossing
+        assert fill == pytest.approx(np.minimum(per_cell(mask) * (stack.pixel_mm / fine.cell_mm) ** 2, 1.0), abs=1e-12)
+        # Crofton's pi / 4 per crossing
+        assert edge == pytest.approx(per_cell(turns) * stack.pixel_mm * np.pi / 4, abs=1e-12)
+
+
+@pytest.mark.parametrize("sub", [1, 3])
+def test_cells_read_from_each_runs_solid_box_count_as_the_whole_frame(sub):
+    """Cells give the fills and edge lengths of a plain count over the whole frame, blobs in the middle and
+    touching every side of the frame."""
+    rng = np.random.default_rng(11)
+    ny, nx = 41, 57
+    masks = []
+    for r0, r1, c0, c1 in ((5, 12, 7, 20), (0, 9, 30, 57), (30, 41, 0, 11), (14, 27, 40, 57), (0, 41, 0, 57)):
+        mask = np.zeros((ny, nx), bool)
+        mask[r0:r1, c0:c1] = rng.random((r1 - r0, c1 - c0)) < 0.6
+        masks.append(mask)
+    stack = LayerStack.from_masks(masks, pixel_mm=0.1, layer_height_mm=0.1, origin_mm=(-2.83, -2.01, 0.0))
+    grid = CellGrid.around(axis_mm=(0.07, -0.03), half_extent_mm=(2.9, 2.2), cell_mm=0.3)
+    _assert_cells_count_every_pixel(stack, masks, grid, sub)
+
+
+@pytest.mark.parametrize("sub", [1, 2])
+def test_cells_counted_from_the_run_below_equal_a_fresh_count_of_every_run(sub):
+    """Each run's fills and edges are counted from what changed since the run below (packed bytes); on layers that
+    change a little at a time (a disc shrinking ring by ring, pixels flipped at random, a layer left empty) and a
+    grid that leaves frame pixels out on two sides and reaches past the frame on the others, they equal a plain
+    count of every run's pixels."""
+    rng = np.random.default_rng(23)
+    ny, nx = 47, 61  # not whole bytes across: the padding bits of every packed row are read too
+    yy, xx = np.mgrid[:ny, :nx]
+    masks = []
+    for k in range(10):
+        mask = np.hypot(yy - 20.3, xx - 33.1) < 24 - 2 * k
+        mask ^= rng.random((ny, nx)) < 0.02
+        masks.append(mask)
+    masks.insert(6, np.zeros((ny, nx), bool))
+    stack = LayerStack.from_masks(masks, pixel_mm=0.1, layer_height_mm=0.1, origin_mm=(-3.0, -2.0, 0.0))
+    grid = CellGrid.around(axis_mm=(0.4, 1.5), half_extent_mm=(2.9, 2.6), cell_mm=0.5)
+    fine = grid.subdivided(sub)
+    rows = fine._bins(stack.y_centres_mm, fine.axis_mm[1], fine.shape[0])
+    cols = fine._bins(stack.x_centres_mm, fine.axis_mm[0], fine.shape[1])
+    assert rows.min() < 0 and cols.min() < 0  # frame pixels below and left of the grid are not counted
+    assert rows.max() < fine.shape[0] - 1 and cols.max() < fine.shape[1] - 1  # the grid reaches past the frame
+    _assert_cells_count_every_pixel(stack, masks, grid, sub)
