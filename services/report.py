@@ -109,6 +109,7 @@ def build_report(*, part: Part, printer: PrinterProfile, material: Material,
     oriented = stages.run("reading", lambda p: layers.orient_part(part, settings.orientation))
     stack = stages.run("slicing", lambda p: layers.build_layer_stack(
         oriented, pixel_mm=printer.pixel_mm, layer_height_mm=printer.layer_height_mm, progress=p))
+    release_free_heap()  # what the slicing's threads freed, before the rules and optics allocate beside each other
     fit_findings, build = check_build_fit(oriented, printer)
     solid = _has_solid(stack)
     rules, estimate, optics, prepared = _rules_estimate_optics(
