@@ -4,8 +4,8 @@
     .venv/bin/python benchmarks/bench_layers.py            # all cases 3 times, a table at the end
     .venv/bin/python benchmarks/bench_layers.py --case pillar_plate_30mm --px 0.025 --dz 0.025 --mode stack
 
-Modes: ``stack`` reads the STL as a raw triangle soup with numpy, makes a Part, orients it and
-builds the layer stack; ``manifold`` reads the same soup, merges it into a manifold3d Manifold and
+Modes: ``stack`` reads the STL as a raw triangle soup with numpy, merges its corners as intake does (not
+timed), makes a Part, orients it and builds the layer stack; ``manifold`` reads the same soup, merges it into a manifold3d Manifold and
 slices every layer's mid-plane (``Manifold.slice`` + ``to_polygons``): the slice-only baseline;
 ``floor`` is issue 14's floor for slicing: the same manifold3d slices, each filled into a raster of the stack's
 frame with OpenCV's ``fillPoly`` (outer contours and holes in one call), timed without the manifold's load.
