@@ -12,6 +12,8 @@ from __future__ import annotations
 
 import math
 import numbers
+import os
+import threading
 import zlib
 from collections import deque
 from collections.abc import Callable, Iterator, Sequence
@@ -89,7 +91,8 @@ def build_layer_stack(
     count = _layer_count(float(tris[:, :, 2].max()), layer_height_mm, part.name)
     heights = (np.arange(count) + 0.5) * layer_height_mm
     report = _Throttle(progress)
-    with ThreadPoolExecutor(max_workers=2, thread_name_prefix="phasewright-layers") as pool:
+    pool = _Helpers()
+    try:
         slicer = _Slicer(tris, heights, pool, grid)
         del tris  # the slicer keeps what it needs of the triangles that cross a plane
         # Any vertex of the part may start a new layer: the part's own (merged) vertices are fewer than the
@@ -106,6 +109,8 @@ def build_layer_stack(
             report(builder.count / count)
         builder.repeat(count - builder.count)
         stack = builder.finish(pixel_mm, layer_height_mm, (grid.x0, grid.y0, 0.0))
+    finally:
+        pool.wait()  # on an error too: no helper outlives the call with work of it
     report(1.0)
     return stack
 
@@ -427,7 +432,7 @@ class _Slicer:
     cracks (bench section 2, MeshSlicer2).
     """
 
-    def __init__(self, tris: np.ndarray, heights: np.ndarray, pool: ThreadPoolExecutor | None = None,
+    def __init__(self, tris: np.ndarray, heights: np.ndarray, pool: _Helpers | None = None,
                  grid: _Grid | None = None) -> None:
         # Two halves of the soup prepared side by side where there are many triangles (the steps are whole-array
         # numpy work that releases the GIL: sorts, gathers, arithmetic), each into its share of the tables.
@@ -523,6 +528,63 @@ class _Slicer:
         t = np.repeat(live[sel], cnt)
         j = np.repeat(a[sel] - np.cumsum(cnt) + cnt, cnt) + np.arange(t.size)
         return t, j
+
+
+class _Helpers:
+    """This call's share of the process's two slicing helper threads: submit work, wait for all of it.
+
+    The threads are kept for the process's life (like the stage threads, their stacks and malloc arenas are mapped
+    once: ``prepare_helpers`` before a memory bound is set) and shared by slicings running at once. A thread that
+    cannot start, its stack past the memory bound, is a MemoryError like any other allocation."""
+
+    def __init__(self) -> None:
+        self.futures: list[Future] = []
+
+    def submit(self, fn: Callable, *args) -> Future:
+        try:
+            future = _helper_threads().submit(fn, *args)
+        except RuntimeError as exc:
+            if "start new thread" not in str(exc):
+                raise
+            raise MemoryError("no address space left to start a slicing thread") from exc
+        self.futures.append(future)
+        return future
+
+    def map(self, fn: Callable, items) -> list:
+        return [f.result() for f in [self.submit(fn, item) for item in items]]
+
+    def wait(self) -> None:
+        for future in self.futures:
+            future.exception()  # waits; an error is raised where its result is read
+
+
+_HELPERS: ThreadPoolExecutor | None = None
+_HELPERS_LOCK = threading.Lock()
+
+
+def _helper_threads() -> ThreadPoolExecutor:
+    global _HELPERS
+    with _HELPERS_LOCK:
+        if _HELPERS is None:
+            _HELPERS = ThreadPoolExecutor(max_workers=2, thread_name_prefix="phasewright-layers")
+        return _HELPERS
+
+
+def _forget_helper_threads() -> None:
+    """In a forked child the parent's threads do not exist: start its own when it first slices."""
+    global _HELPERS, _HELPERS_LOCK
+    _HELPERS, _HELPERS_LOCK = None, threading.Lock()
+
+
+os.register_at_fork(after_in_child=_forget_helper_threads)
+
+
+def prepare_helpers() -> None:
+    """Start both slicing helper threads now, so their stacks and arenas are mapped before a memory bound is set."""
+    both = threading.Barrier(2)
+    futures = [_helper_threads().submit(both.wait, 10) for _ in range(2)]
+    for future in futures:
+        future.result()
 
 
 def _crossing(tris: np.ndarray, heights: np.ndarray, lo: int, hi: int, grid: _Grid | None) -> np.ndarray:
@@ -643,7 +705,7 @@ class _StackBuilder:
     on) over its runs, so each new raster only touches the pixels that changed from the one below.
     """
 
-    def __init__(self, shape: tuple[int, int], keeper: ThreadPoolExecutor | None = None) -> None:
+    def __init__(self, shape: tuple[int, int], keeper: _Helpers | None = None) -> None:
         self.shape = (int(shape[0]), int(shape[1]))
         self.count = 0
         self.kept: list[Future | tuple[bytes, int, int]] = []  # per distinct raster: _kept(box), or its future

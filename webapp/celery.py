@@ -51,6 +51,9 @@ def bound_child_memory(**_) -> None:
         from services.stages import prepare_threads
 
         prepare_threads()  # the stage threads' stacks and arenas, mapped once per child and reused by every check
+    from services.layers import prepare_helpers
+
+    prepare_helpers()  # the same for the slicing's two helper threads
     limit = limits.cap_memory(settings.PHASEWRIGHT_CHECK_MEMORY_MIB)
     logging.getLogger(__name__).info("worker child %s: address space capped at %.0f MiB", os.getpid(), limit / 2**20)
 

@@ -616,3 +616,38 @@ def test_triangles_between_pixel_columns_are_left_out_of_the_slicing(make_part, 
     every = build_layer_stack(part, pixel_mm=PX, layer_height_mm=PX)
     assert _stack_digest(pruned) == _stack_digest(every)
     assert sum(k for k, _ in kept) < 0.8 * sum(n for _, n in kept)  # facets really were left out
+
+
+def test_a_slicing_thread_that_cannot_start_is_a_memory_error(make_part, monkeypatch):
+    """Past the memory bound a helper thread's stack cannot be mapped: the slicing fails as out of memory (the
+    check then ends with the memory limit's sentence), not as an internal error."""
+    class Full:
+        def submit(self, *args):
+            raise RuntimeError("can't start new thread")
+
+    monkeypatch.setattr(layers, "_helper_threads", Full)
+    with pytest.raises(MemoryError):
+        stack_of(make_part(Manifold.cube((30.0, 20.0, 2.0))))
+
+
+def _sliced_volume_in_child(part, out) -> None:
+    out.put(stack_of(part).volume_mm3)
+
+
+def test_a_forked_child_slices_with_helper_threads_of_its_own(make_part):
+    """A worker child forked after its parent sliced does not wait on the parent's helper threads, which do not
+    exist in the child."""
+    import multiprocessing
+
+    part = make_part(Manifold.cube((30.0, 20.0, 2.0)))
+    layers.prepare_helpers()
+    context = multiprocessing.get_context("fork")
+    out = context.Queue()
+    child = context.Process(target=_sliced_volume_in_child, args=(part, out))
+    child.start()
+    try:
+        assert out.get(timeout=60) == pytest.approx(stack_of(part).volume_mm3)
+    finally:
+        child.join(timeout=10)
+        if child.is_alive():
+            child.kill()
