@@ -15,7 +15,6 @@ import numbers
 import os
 import threading
 import zlib
-from collections import deque
 from collections.abc import Callable, Iterator, Sequence
 from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass, field, replace
@@ -162,11 +161,9 @@ class LayerStack:
         reads what changed from one run to the next."""
         row_bytes = (self.shape[1] + 7) // 8
         for first, last, d in self._spans():
-            r0, b0, rows, width = (int(v) for v in self._boxes[d])
+            (r0, b0), box = self._packed_box(d)
             frame = np.zeros((self.shape[0], row_bytes), dtype=np.uint8)
-            if rows:
-                box = np.frombuffer(zlib.decompress(self._packed[d]), dtype=np.uint8).reshape(rows, width)
-                frame[r0:r0 + rows, b0:b0 + width] = box
+            frame[r0:r0 + box.shape[0], b0:b0 + box.shape[1]] = box
             yield first, last, frame
 
     def run_box_px(self) -> np.ndarray:
@@ -251,11 +248,15 @@ class LayerStack:
 
     def _unpack_box(self, d: int) -> tuple[tuple[int, int], np.ndarray]:
         """Return ((row0, col0), bool mask) of distinct layer d's solid box."""
-        r0, b0, rows, row_bytes = (int(v) for v in self._boxes[d])
-        box = np.frombuffer(zlib.decompress(self._packed[d]), dtype=np.uint8).reshape(rows, row_bytes)
+        (r0, b0), box = self._packed_box(d)
         c0 = 8 * b0
         width = min(8 * box.shape[1], self.shape[1] - c0)
         return (r0, c0), np.unpackbits(box, axis=1, count=width).view(bool)
+
+    def _packed_box(self, d: int) -> tuple[tuple[int, int], np.ndarray]:
+        """Return ((row0, byte0), packed bytes) of distinct layer d's solid box, as stored."""
+        r0, b0, rows, row_bytes = (int(v) for v in self._boxes[d])
+        return (r0, b0), np.frombuffer(zlib.decompress(self._packed[d]), dtype=np.uint8).reshape(rows, row_bytes)
 
 
 # The eight ways a layer can lie on itself in the build plane (rows are y, columns x): turned by quarters, or
@@ -438,9 +439,9 @@ class _Slicer:
         # numpy work that releases the GIL: sorts, gathers, arithmetic), each into its share of the tables.
         half = len(tris) // 2
         spans = [(0, half), (half, len(tris))] if pool is not None and half >= _SPLIT_TRIANGLES else [(0, len(tris))]
-        run = pool.beside if len(spans) > 1 else (lambda fn, items: [fn(item) for item in items])
-        crossing = run(lambda span: _crossing(tris, heights, *span, grid), spans)
-        offsets = np.cumsum([0] + [len(keep) for keep in crossing]).tolist()
+        each = pool.beside if len(spans) > 1 else (lambda fn, items: [fn(item) for item in items])
+        crossing = each(lambda span: _crossing(tris, heights, *span, grid), spans)
+        offsets = np.cumsum([0] + [len(keep) for keep, _, _ in crossing]).tolist()
         n = offsets[-1]
         self.first, self.stop = np.empty(n, dtype=np.int64), np.empty(n, dtype=np.int64)
         self.sign = np.empty(n, dtype=np.int8)
@@ -448,7 +449,7 @@ class _Slicer:
         self.short = np.empty((2 * n, 5))  # row 2t: A-B of triangle t, row 2t + 1: B-C
         self.b_z = np.empty(n)
         self.rise, self.run = np.empty(n), np.empty(n)  # z span x |n_z| and |n_xy|: how far a cut drifts per height
-        run(lambda i: self._fill(tris, heights, crossing[i], offsets[i]), range(len(spans)))
+        each(lambda i: self._fill(tris, *crossing[i], offsets[i]), range(len(spans)))
         self.heights = heights
         self._order = np.argsort(self.first, kind="stable")
         self._first_sorted = self.first[self._order]
@@ -474,12 +475,12 @@ class _Slicer:
         out[0] = True
         return out
 
-    def _fill(self, tris: np.ndarray, heights: np.ndarray, keep: np.ndarray, at: int) -> None:
-        """Fill the tables' rows at..at + len(keep) - 1 from the triangles ``keep`` (ascending)."""
+    def _fill(self, tris: np.ndarray, keep: np.ndarray, first: np.ndarray, stop: np.ndarray, at: int) -> None:
+        """Fill the tables' rows at..at + len(keep) - 1 from the triangles ``keep`` (ascending), which cross the
+        planes first..stop - 1."""
         rows = slice(at, at + len(keep))
+        self.first[rows], self.stop[rows] = first, stop
         z = tris[keep, :, 2]
-        self.first[rows] = np.searchsorted(heights, np.minimum(np.minimum(z[:, 0], z[:, 1]), z[:, 2]), "right")
-        self.stop[rows] = np.searchsorted(heights, np.maximum(np.maximum(z[:, 0], z[:, 1]), z[:, 2]), "right")
         order = np.argsort(z, axis=1, kind="stable")
         # The sort's parity turns the sorted corners' normal back into the file's winding.
         parity = np.sign((order[:, 1] - order[:, 0]) * (order[:, 2] - order[:, 0]) * (order[:, 2] - order[:, 1]))
@@ -595,8 +596,10 @@ def prepare_helpers() -> None:
         future.result()
 
 
-def _crossing(tris: np.ndarray, heights: np.ndarray, lo: int, hi: int, grid: _Grid | None) -> np.ndarray:
-    """Return the triangles of lo..hi-1 that cross a layer's plane (a third of the 2M lens's triangles) and, given
+def _crossing(tris: np.ndarray, heights: np.ndarray, lo: int, hi: int,
+              grid: _Grid | None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Return (triangles, first plane, stop plane) of the triangles of lo..hi-1 that cross a layer's plane, each
+    from its first plane crossed to before its stop one (a third of the 2M lens's triangles cross one) and, given
     the grid, reach across a pixel-centre column: a cut adds a winding only where it crosses one, and every cut
     of a triangle lies within its x bounds, so one lying between two columns never adds any (most of a dense
     plate's pillar facets, 20-40 um wide against a 50 um pixel)."""
@@ -611,7 +614,8 @@ def _crossing(tris: np.ndarray, heights: np.ndarray, lo: int, hi: int, grid: _Gr
         column = lambda v: np.ceil((v - grid.x0) / grid.px - 0.5)  # noqa: E731
         keep &= (column(np.minimum(np.minimum(x[:, 0], x[:, 1]), x[:, 2]) - _CUT_ROUNDING_MM)
                  != column(np.maximum(np.maximum(x[:, 0], x[:, 1]), x[:, 2]) + _CUT_ROUNDING_MM))
-    return np.flatnonzero(keep) + lo
+    keep = np.flatnonzero(keep)
+    return keep + lo, first[keep], stop[keep]
 
 
 def _edge_table(lo: np.ndarray, hi: np.ndarray) -> np.ndarray:
@@ -718,7 +722,6 @@ class _StackBuilder:
         self.count = 0
         self.kept: list[Future | tuple[bytes, int, int]] = []  # per distinct raster: _kept(box), or its future
         self.keeper = keeper
-        self.waiting: deque[Future] = deque()
         self.boxes: list[tuple[int, int, int, int]] = []
         self.last: tuple[tuple[int, int], np.ndarray] | None = None  # the top raster, still unpacked
         self.run_lengths: list[int] = []
@@ -735,7 +738,7 @@ class _StackBuilder:
         if self.last and corner == self.last[0] and np.array_equal(box, self.last[1]):
             self.repeat(1)
             return
-        self._switch(self.last, (corner, box), self.count)
+        self._switch(corner, box)
         self.last = (corner, box)
         self.boxes.append((*corner, *box.shape))
         self.run_lengths.append(1)
@@ -746,10 +749,9 @@ class _StackBuilder:
         # Deflating and counting read only the box and mostly release the GIL: the keeper's threads do them
         # while this one slices on (the column counts there too were no faster: they hold the GIL in small steps).
         # A few boxes wait at most, so memory stays bounded if the keeper falls behind.
-        while len(self.waiting) >= _KEPT_WAITING:
-            self.waiting.popleft().result()
+        if len(self.kept) >= _KEPT_WAITING:
+            self.kept[-_KEPT_WAITING].result()  # the helpers take boxes in order
         self.kept.append(self.keeper.submit(_kept, box))
-        self.waiting.append(self.kept[-1])
 
     def repeat(self, n: int) -> None:
         """Append n more layers equal to the last one."""
@@ -759,7 +761,7 @@ class _StackBuilder:
 
     def finish(self, pixel_mm: float, layer_height_mm: float, origin_mm: tuple) -> LayerStack:
         kept = [k.result() if isinstance(k, Future) else k for k in self.kept]
-        self._switch(self.last, ((0, 0), np.zeros((0, 0), dtype=np.uint8)), self.count)
+        self._switch((0, 0), np.zeros((0, 0), dtype=np.uint8))
         packed = tuple(k[0] for k in kept)
         index = np.repeat(np.arange(len(packed), dtype=np.int32), self.run_lengths)
         area = np.asarray([k[1] for k in kept], dtype=np.float64).reshape(-1)[index] * pixel_mm**2
@@ -775,12 +777,9 @@ class _StackBuilder:
             _boxes=np.asarray(self.boxes, dtype=np.int32).reshape(-1, 4), _index=index,
         )
 
-    def _switch(self, below: tuple[tuple[int, int], np.ndarray] | None, raster: tuple[tuple[int, int], np.ndarray],
-                layer: int) -> None:
-        """Subtract ``layer`` where pixels switch on from the raster below to this one and add it where they
-        switch off."""
-        corner, box = raster
-        old = below or (corner, box[:0, :0])
+    def _switch(self, corner: tuple[int, int], box: np.ndarray) -> None:
+        """Subtract this layer's index where pixels switch on and add it where they switch off."""
+        old, layer = self.last or (corner, box[:0, :0]), self.count
         boxes = [(c, b) for c, b in (old, (corner, box)) if b.size]
         if not boxes:
             return

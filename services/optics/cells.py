@@ -246,7 +246,7 @@ class _ChangeCounter:
         changed = nonzero_bytes(flat_new ^ flat_old)
         if changed.size:
             flips = flat_new[changed] ^ flat_old[changed]
-            self._add(self.count, [(changed, flat_new[changed] & flips, 1), (changed, flat_old[changed] & flips, -1)])
+            self._add(self.count, changed, [(flat_new[changed] & flips, 1), (flat_old[changed] & flips, -1)])
             if with_edges:
                 near = np.zeros(flat_new.size, dtype=bool)
                 near[changed] = True
@@ -254,8 +254,7 @@ class _ChangeCounter:
                 near[changed[changed >= self.row_bytes] - self.row_bytes] = True
                 near = nonzero_bytes(near.view(np.uint8))
                 now, before = self._transitions(flat_new, near), self._transitions(flat_old, near)
-                self._add(self.turns, [(near, now[0], 1), (near, now[1], 1), (near, before[0], -1),
-                                       (near, before[1], -1)])
+                self._add(self.turns, near, [(now[0], 1), (now[1], 1), (before[0], -1), (before[1], -1)])
         self.below = packed
         return self.count.reshape(self.shape).copy(), self.turns.reshape(self.shape).copy() if with_edges else None
 
@@ -269,18 +268,18 @@ class _ChangeCounter:
         above = np.where(at + self.row_bytes < flat.size, flat[np.minimum(at + self.row_bytes, flat.size - 1)], x)
         return right, x ^ above
 
-    def _add(self, into: np.ndarray, changes: list[tuple[np.ndarray, np.ndarray, int]]) -> None:
-        """Add, for each (flat byte indices, bytes, sign), ``sign`` to the cell of every set bit of the bytes."""
+    def _add(self, into: np.ndarray, at: np.ndarray, changes: list[tuple[np.ndarray, int]]) -> None:
+        """Add, for each (bytes found at the flat byte indices ``at``, sign), ``sign`` to the cell of every set bit."""
+        row, col = np.divmod(at, self.row_bytes)
+        row_cell = self.row_cell[row]
         cells, pixels = [], []
-        for at, bits, sign in changes:
-            some = np.flatnonzero(bits)
-            at, bits = at[some], bits[some]
-            row, col = np.divmod(at, self.row_bytes)
-            row_cell = self.row_cell[row]
+        for bits, sign in changes:
+            some = np.flatnonzero(bits)  # most bytes near a change have no bit of this kind set
+            bits, some_row, some_col = bits[some], row_cell[some], col[some]
             for k in range(self.stretches):
-                cell, count = self.stretch_cell[k, col], np.bitwise_count(bits & self.stretch_mask[k, col])
-                counted = (row_cell >= 0) & (cell >= 0) & (count > 0)
-                cells.append(row_cell[counted] + cell[counted])
+                cell, count = self.stretch_cell[k, some_col], np.bitwise_count(bits & self.stretch_mask[k, some_col])
+                counted = (some_row >= 0) & (cell >= 0) & (count > 0)
+                cells.append(some_row[counted] + cell[counted])
                 pixels.append(count[counted].astype(np.int64) * sign)
         # One count per call; the weights are whole numbers, so their float sums are exact.
         into += np.bincount(np.concatenate(cells), weights=np.concatenate(pixels), minlength=self.cells).astype(np.int64)
@@ -289,7 +288,7 @@ class _ChangeCounter:
 def _coarsen(a: np.ndarray, sub: int) -> np.ndarray:
     """Return the sums over sub x sub blocks (integer counts, so the sums are exact)."""
     out = np.zeros((a.shape[0] // sub, a.shape[1] // sub), dtype=a.dtype)
-    for i in range(sub):  # strided adds: several times faster than a reduction over two short axes
+    for i in range(sub):  # strided adds: 0.07 against 0.65 ms for a reduction over two short axes (342^2, sub 2)
         for j in range(sub):
             out += a[i:out.shape[0] * sub:sub, j:out.shape[1] * sub:sub]
     return out

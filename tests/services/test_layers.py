@@ -607,7 +607,7 @@ def test_triangles_between_pixel_columns_are_left_out_of_the_slicing(make_part, 
     real, kept = layers._crossing, []
 
     def counted(tris, heights, lo, hi, grid):
-        kept.append((len(real(tris, heights, lo, hi, grid)), len(real(tris, heights, lo, hi, None))))
+        kept.append((len(real(tris, heights, lo, hi, grid)[0]), len(real(tris, heights, lo, hi, None)[0])))
         return real(tris, heights, lo, hi, grid)
 
     monkeypatch.setattr(layers, "_crossing", counted)
