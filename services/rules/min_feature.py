@@ -159,7 +159,7 @@ def thin_parts(view: RunView, n_sup: int | None, n_uns: int | None):
     rows, cols = rows[keep] + rs.start, cols[keep] + cs.start
     if rows.size == 0:
         return free_lut, none, none, np.zeros(0), np.zeros(0)
-    width, depth = _ray(view.mask, rows, cols, n_sup)
+    width, depth = thin.widths_at(view.mask, rows, cols, n_sup)
     keep = thin.is_under(width, n_sup)
     return free_lut, rows[keep], cols[keep], width[keep], depth[keep]
 
@@ -218,14 +218,3 @@ def _narrow_labels(view: RunView, n_px: int) -> np.ndarray:
     if edge.size:
         narrow[edge] = thin.is_under(refine_widths(view, at[edge], width[edge]), n_px)
     return narrow
-
-
-def _ray(mask: np.ndarray, rows: np.ndarray, cols: np.ndarray, n_px: int) -> np.ndarray:
-    """Return (width, distance to the nearest void) in px of candidate pixels, measured in a crop."""
-    m = n_px + 3
-    r0, r1 = max(rows.min() - m, 0), min(rows.max() + m + 1, mask.shape[0])
-    c0, c1 = max(cols.min() - m, 0), min(cols.max() + m + 1, mask.shape[1])
-    crop = mask[r0:r1, c0:c1]
-    dist, numbers = raster.nearest_void(crop)
-    near = raster.void_index(crop, numbers[rows - r0, cols - c0])
-    return thin.widths_across(crop, rows - r0, cols - c0, near, n_px), dist[rows - r0, cols - c0]

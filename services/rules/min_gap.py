@@ -136,15 +136,10 @@ def narrow_void(view: RunView, n_px: int, hole_px2: float | None):
     rows, cols = rows[keep], cols[keep]
     if rows.size == 0:
         return rows, cols, np.zeros(0), np.zeros(0)
-    m = n_px + 3
-    r0, c0 = max(rows.min() - m, 0), max(cols.min() - m, 0)
-    crop = void[r0:rows.max() + m + 1, c0:cols.max() + m + 1]
-    depth, numbers = raster.nearest_void(crop)  # from the void, the nearest material
-    near = raster.void_index(crop, numbers[rows - r0, cols - c0])
-    width = thin.widths_across(crop, rows - r0, cols - c0, near, n_px)
+    width, depth = thin.widths_at(void, rows, cols, n_px)  # from the void, the nearest material
     narrow = thin.is_under(width, n_px)
     rows, cols = rows[narrow], cols[narrow]
-    return rows + rs.start, cols + cs.start, width[narrow], depth[rows - r0, cols - c0]
+    return rows + rs.start, cols + cs.start, width[narrow], depth[narrow]
 
 
 def _hole_area_px(printer, pixel_mm: float) -> float | None:

@@ -23,6 +23,8 @@ from __future__ import annotations
 import cv2
 import numpy as np
 
+from services.rules import raster
+
 SIGMA_PX = 1.0  # Gaussian smoothing for the edge normal: wide enough to average a stair, narrow for thin walls
 _REACH = 3  # the smoothing window's half-width, in pixels (about 3 sigma)
 
@@ -100,6 +102,41 @@ def widths_across(mask: np.ndarray, rows: np.ndarray, cols: np.ndarray, near: np
     return width
 
 
+def widths_at(mask: np.ndarray, rows: np.ndarray, cols: np.ndarray, cap_px: int) -> tuple[np.ndarray, np.ndarray]:
+    """Return (width px across ``mask``, distance px to its nearest void) at candidate pixels, the candidates
+    narrower than about ``cap_px``: thin material, or thin void with the void passed as ``mask``.
+
+    Measured in a crop of the candidates' box grown by ``_candidate_reach``, which holds every pixel the
+    distance map, the normals, the march and the edge search read from a candidate, so a crop gives what
+    the whole array gives. Candidates whose crop would pass ``EDGE_CROP_MAX_PX`` (a zoned lens's rings lie
+    over its whole frame) are measured in parts, split along the wider spread: the distance map and its
+    labels are then a part's size, not the frame's (104 MB on a 100 mm lens at 25 um).
+    """
+    m = _candidate_reach(cap_px)
+    span_y, span_x = int(rows.max() - rows.min()), int(cols.max() - cols.min())
+    crop_px = min(span_y + 2 * m + 1, mask.shape[0]) * min(span_x + 2 * m + 1, mask.shape[1])
+    if crop_px > EDGE_CROP_MAX_PX and rows.size > 1:
+        order = np.argsort(rows if span_y >= span_x else cols, kind="stable")
+        half = order.size // 2
+        width, depth = np.empty(rows.size), np.empty(rows.size, np.float32)  # the distance map's type
+        for part in (order[:half], order[half:]):
+            width[part], depth[part] = widths_at(mask, rows[part], cols[part], cap_px)
+        return width, depth
+    r0, r1 = max(int(rows.min()) - m, 0), min(int(rows.max()) + m + 1, mask.shape[0])
+    c0, c1 = max(int(cols.min()) - m, 0), min(int(cols.max()) + m + 1, mask.shape[1])
+    crop = mask[r0:r1, c0:c1]
+    dist, numbers = raster.nearest_void(crop)
+    near = raster.void_index(crop, numbers[rows - r0, cols - c0])
+    return widths_across(crop, rows - r0, cols - c0, near, cap_px), dist[rows - r0, cols - c0]
+
+
+def _candidate_reach(cap_px: int) -> int:
+    """Return how far (px) from a candidate its measurement reads: its nearest void within about cap_px / 2 + 1
+    (it lies in something narrower than the cap), then from there the march (cap_px + 4), the edge search's
+    crop (cap_px + 5) or the normal's filter (``_REACH``), and a pixel of the distance map's 5x5 mask."""
+    return cap_px // 2 + 2 + max(cap_px + 5, _REACH) + 2
+
+
 def _measure(mask, vy, vx, uy, ux, cap_px: int) -> tuple[np.ndarray, np.ndarray]:
     """Return (width px, whether the line met material) from void pixels along unit directions."""
     width, entered = _march(mask, vy, vx, uy, ux, cap_px)
@@ -115,6 +152,7 @@ def is_under(width_px: np.ndarray, limit_px: int) -> np.ndarray:
 
 
 REMAP_MAX = 32_000  # OpenCV's remap takes maps and sources under 32,767 (SHRT_MAX) rows and columns
+EDGE_CROP_MAX_PX = 1 << 22  # a crop's pixels at most (16 MB as float32): a ring's candidates come in parts
 
 
 def _edge_to_edge(mask, vy, vx, uy, ux, cap_px: int) -> np.ndarray:
@@ -122,20 +160,24 @@ def _edge_to_edge(mask, vy, vx, uy, ux, cap_px: int) -> np.ndarray:
 
     The mask smoothed over a Gaussian of 0.7 px crosses one half within about a quarter pixel of a
     straight edge drawn at any angle; samples a quarter pixel apart, linearly interpolated between.
-    Many lines, or lines spread wider than OpenCV's remap takes, are measured in parts (split along
-    the wider spread, so each part's crop stays small).
+    Lines whose crop would be large (many, spread wider than OpenCV's remap takes, or over more than
+    ``EDGE_CROP_MAX_PX``, as a zoned lens's rings are over its whole frame) are measured in parts, split along
+    the wider spread. Each part's crop reaches every pixel its samples, their interpolation and the
+    smoothing read, so the widths do not depend on how the lines are split.
     """
-    span = max(int(vy.max() - vy.min()), int(vx.max() - vx.min())) + 2 * cap_px + 10
-    if vy.size > REMAP_MAX or span >= REMAP_MAX:
-        along = vy if vy.max() - vy.min() >= vx.max() - vx.min() else vx
-        order = np.argsort(along, kind="stable")
+    reach = cap_px + 5  # samples to cap_px + 1.75 along a unit line, one pixel to interpolate, two to smooth
+    span_y, span_x = int(vy.max() - vy.min()), int(vx.max() - vx.min())
+    crop_px = min(span_y + 2 * reach + 1, mask.shape[0]) * min(span_x + 2 * reach + 1, mask.shape[1])
+    if vy.size > REMAP_MAX or max(span_y, span_x) + 2 * reach + 1 >= REMAP_MAX or (crop_px > EDGE_CROP_MAX_PX
+                                                                                   and vy.size > 1):
+        order = np.argsort(vy if span_y >= span_x else vx, kind="stable")
         half = order.size // 2
         out = np.empty(vy.size)
         for part in (order[:half], order[half:]):
             out[part] = _edge_to_edge(mask, vy[part], vx[part], uy[part], ux[part], cap_px)
         return out
-    r0, r1 = int(max(vy.min() - cap_px - 4, 0)), int(min(vy.max() + cap_px + 5, mask.shape[0]))
-    c0, c1 = int(max(vx.min() - cap_px - 4, 0)), int(min(vx.max() + cap_px + 5, mask.shape[1]))
+    r0, r1 = int(max(vy.min() - reach, 0)), int(min(vy.max() + reach + 1, mask.shape[0]))
+    c0, c1 = int(max(vx.min() - reach, 0)), int(min(vx.max() + reach + 1, mask.shape[1]))
     level = cv2.GaussianBlur(mask[r0:r1, c0:c1].astype(np.float32), (5, 5), 0.7, borderType=cv2.BORDER_CONSTANT)
     t = np.arange(-1.0, cap_px + 2.0, 0.25, dtype=np.float32)
     y = ((vy - r0)[:, None] + t[None, :] * uy[:, None]).astype(np.float32)

@@ -102,3 +102,20 @@ def test_a_rib_is_no_optical_zone():
     rib = m3d.Manifold.cube((2.0, 30.0, 2.0)).translate((-1.0, -15.0, 0.0))
     zone = aperture_of(part_from(plate + rib, "ribbed plate"))
     assert zone.how == "outline" and zone.area_mm2 == pytest.approx(900.0, rel=0.01)
+
+
+def test_the_aperture_tested_a_band_of_rows_at_a_time_is_the_whole_frames(monkeypatch):
+    """The radius and thickness tests run a band of rows at a time (no frame-sized float maps): the detected,
+    given and round apertures are pixel for pixel those of one test over the whole frame."""
+    from services.optics import aperture
+
+    flanged, plain = lens(20.0, 40.0, 1.0, 5.0, 1.0), lens(20.0, 40.0, 1.0)
+    cases = [(flanged, {}), (plain, {"given_mm": 30.0})]
+    monkeypatch.setattr(aperture, "BAND_ROWS", 10**6)
+    whole = [aperture_of(part, **kwargs) for part, kwargs in cases]
+    monkeypatch.setattr(aperture, "BAND_ROWS", 7)
+    banded = [aperture_of(part, **kwargs) for part, kwargs in cases]
+    assert [z.how for z in banded] == ["detected", "given"]
+    for a, b in zip(whole, banded):
+        np.testing.assert_array_equal(a.mask, b.mask)
+        assert (a.rim_radius_mm, a.area_mm2) == (b.rim_radius_mm, b.area_mm2)

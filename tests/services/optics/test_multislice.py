@@ -5,6 +5,7 @@ import pytest
 from scipy import fft as sfft
 
 from services.layers import LayerStack, build_layer_stack
+from services.optics import cells as cell_counting
 from services.optics.cells import CellGrid, cell_runs
 from services.optics.materials import rf_values, wavelength_mm
 from services.optics.multislice import Beam, Window
@@ -177,12 +178,14 @@ def test_cells_read_from_each_runs_solid_box_count_as_the_whole_frame(sub):
     _assert_cells_count_every_pixel(stack, masks, grid, sub)
 
 
-@pytest.mark.parametrize("sub", [1, 2])
-def test_cells_counted_from_the_run_below_equal_a_fresh_count_of_every_run(sub):
+@pytest.mark.parametrize("sub, band_bytes", [(1, None), (2, None), (1, 7), (2, 7)])
+def test_cells_counted_from_the_run_below_equal_a_fresh_count_of_every_run(sub, band_bytes, monkeypatch):
     """Each run's fills and edges are counted from what changed since the run below (packed bytes); on layers that
     change a little at a time (a disc shrinking ring by ring, pixels flipped at random, a layer left empty) and a
     grid that leaves frame pixels out on two sides and reaches past the frame on the others, they equal a plain
-    count of every run's pixels."""
+    count of every run's pixels; also when the changed bytes are counted a few at a time."""
+    if band_bytes is not None:
+        monkeypatch.setattr(cell_counting, "ADD_BYTES", band_bytes)
     rng = np.random.default_rng(23)
     ny, nx = 47, 61  # not whole bytes across: the padding bits of every packed row are read too
     yy, xx = np.mgrid[:ny, :nx]

@@ -160,3 +160,29 @@ def test_the_sampled_width_is_the_run_of_material_met_along_each_line():
         width, met = thin._march(mask, vy, vx, uy, ux, cap)
         ref_width, ref_met = _walked(mask, vy, vx, uy, ux, cap)
         assert np.array_equal(met, ref_met) and np.array_equal(width, ref_width)
+
+
+@pytest.mark.parametrize("of_void", [False, True])
+def test_widths_measured_in_parts_equal_one_measurement_over_the_whole_array(monkeypatch, of_void):
+    """Candidates spread over the whole array (rings of every width, as a zoned lens's zones, and thin speckle) are
+    measured in small crops when their box is large; each crop holds what its candidates' measurement reads, so
+    the widths and depths equal a distance map and a width search over the whole array, with no crop at all."""
+    yy, xx = np.mgrid[0:400, 0:420] + 0.5
+    radius = np.hypot(yy - 190.3, xx - 214.7)
+    mask = (np.sin(radius / 2.5) + 0.3 * np.sin(xx / 5.0) > 0.2) & (radius < 185)
+    mask |= np.random.default_rng(5).random(mask.shape) < 0.01
+    mask = ~mask if of_void else mask
+    padded = np.pad(mask, 2)  # void beyond the edge counts (the scan's frame has a void margin)
+    cap = 9
+    rows, cols = raster.coords(padded & ~raster.open_disk(padded, cap))
+    assert rows.size > 5000 and np.ptp(rows) > 300 and np.ptp(cols) > 300
+    dist, numbers = raster.nearest_void(padded)
+    whole_width = thin.widths_across(padded, rows, cols, raster.void_index(padded, numbers[rows, cols]), cap)
+    whole_depth = dist[rows, cols]
+    monkeypatch.setattr(thin, "EDGE_CROP_MAX_PX", 50 * 50)  # parts of a few dozen candidates each
+    width, depth = thin.widths_at(padded, rows, cols, cap)
+    np.testing.assert_array_equal(depth, whole_depth)
+    # Only float32 rounding differs: the edge search's sample positions are single precision from the crop's
+    # corner (a spacing of 3e-5 px at 400 px), and the filters' sums follow a crop's column start (1e-8).
+    np.testing.assert_allclose(width, whole_width, rtol=0, atol=1e-4)
+    assert np.count_nonzero(thin.is_under(width, cap) != thin.is_under(whole_width, cap)) == 0
