@@ -59,7 +59,7 @@ def check_build_fit(part: Part, printer: PrinterProfile) -> tuple[list[Finding],
                                 measured=round(height, 3), limit=bz, unit="mm"))
     if w > bx + 1e-9 or d > by + 1e-9:
         findings.append(Finding("build_fit", "blocker", f"The footprint {w:.1f} x {d:.1f} mm does not fit the {bx:.0f} x {by:.0f} mm plate at any turn about z; split the part or choose a larger printer.",
-                                measured=round(max(w, d), 3), limit=max(bx, by), unit="mm"))
+                                **_side_that_fails((w, d), (bx, by))))
     elif angle != 0.0 and not findings:
         findings.append(Finding("build_fit", "note", f"Fits when turned {angle:.0f} deg about z ({w:.1f} x {d:.1f} mm on the {bx:.0f} x {by:.0f} mm plate); {copies} per build.",
                                 measured=angle, unit="deg", count=copies))
@@ -75,3 +75,12 @@ def _hull(xy: np.ndarray) -> np.ndarray:
         except QhullError:
             pass
     return np.unique(pts, axis=0)  # fewer than three distinct or collinear points: they carry the extents
+
+
+def _side_that_fails(footprint_mm: tuple[float, float], plate_mm: tuple[float, float]) -> dict:
+    """Return the measured side and its limit of a footprint that does not fit: the longer sides compared when the
+    longer is too long, else the shorter (100 x 100 mm on a 130 x 80 mm plate: 100 mm against 80, not 130)."""
+    (short, long_), (plate_short, plate_long) = sorted(footprint_mm), sorted(plate_mm)
+    if long_ > plate_long + 1e-9:
+        return {"measured": round(long_, 3), "limit": plate_long, "unit": "mm"}
+    return {"measured": round(short, 3), "limit": plate_short, "unit": "mm"}

@@ -70,6 +70,10 @@ def test_it_writes_where_and_how_much():
     assert measured_text({"measured": 2.0, "unit": "bodies"}) == "2 bodies"
     assert measured_text({"measured": 1.0, "limit": 0.0, "unit": "edges"}) == "1 edge against a limit of 0 edges"
     assert measured_text({"measured": 6.2, "limit": 5.0, "unit": "ratio"}) == "6.2 (height over width) against a limit of 5"
+    # Three significant figures, never in exponent form on the page: a trapped hollow's section in mm2.
+    assert measured_text({"measured": 1466.9, "limit": 25.0, "unit": "mm2"}) == "1,470 mm2 against a limit of 25 mm2"
+    assert measured_text({"measured": 0.0159, "unit": "mm"}) == "0.0159 mm"
+    assert measured_text({"measured": -123456.0, "unit": "mm"}) == "-123,000 mm"
     assert location_text({"layers": [3, 3]}) == "layer 3" and measured_text({"measured": None}) == ""
     assert severity_counts([{"severity": "blocker"}]) == {"blocker": 1, "caution": 0, "note": 0}
     assert quote_label("setup_labour") == "Set-up labour" and quote_label("new_item") == "New item"

@@ -53,3 +53,13 @@ def test_it_blocks_a_footprint_that_fits_no_turn():
 def test_copies_follow_the_grid_with_spacing():
     """Copies of a 20 x 20 mm footprint with 5 mm spacing on 130 x 80 mm: floor(135/25) x floor(85/25) = 5 x 3."""
     assert copies_per_plate(20, 20, (130, 80), 5) == 15
+
+
+def test_a_footprint_that_fits_no_turn_is_measured_on_the_side_that_fails():
+    """100 x 100 mm on a 130 x 80 mm plate: the shorter sides fail (100 mm against 80 mm, not against 130 mm);
+    150 x 50 mm on it: the longer sides do (150 against 130). A 150 x 50 mm bar's diagonal turn would need a
+    plate wider than 80 mm at 130 mm, so neither turns."""
+    for (x, y), measured, limit in (((100, 100), 100, 80), ((150, 50), 150, 130)):
+        findings, _ = check_build_fit(_box_part(x, y, 5), _printer())
+        blocker = next(f for f in findings if "does not fit" in f.message)
+        assert (blocker.measured, blocker.limit) == (measured, limit)

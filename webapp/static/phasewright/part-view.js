@@ -201,6 +201,6 @@ function build(view) {
   });
   applyLayer();
   say(`${view.mesh.triangles.toLocaleString()} of ${view.mesh.source_triangles.toLocaleString()} triangles shown` +
-      (layers.every > 1 ? `; as printed: every ${layers.every}th run of layers` : "") + ".");
+      (layers.every > 1 ? `; as printed: one run of layers in ${layers.every}` : "") + ".");
   window.phasewrightPartView = "ready";
 }
