@@ -112,6 +112,8 @@ def widths_at(mask: np.ndarray, rows: np.ndarray, cols: np.ndarray, cap_px: int)
     over its whole frame) are measured in parts, split along the wider spread: the distance map and its
     labels are then a part's size, not the frame's (104 MB on a 100 mm lens at 25 um).
     """
+    if rows.size == 0:
+        return np.zeros(0), np.zeros(0, np.float32)
     m = _candidate_reach(cap_px)
     span_y, span_x = int(rows.max() - rows.min()), int(cols.max() - cols.min())
     crop_px = min(span_y + 2 * m + 1, mask.shape[0]) * min(span_x + 2 * m + 1, mask.shape[1])

@@ -186,3 +186,5 @@ def test_widths_measured_in_parts_equal_one_measurement_over_the_whole_array(mon
     # corner (a spacing of 3e-5 px at 400 px), and the filters' sums follow a crop's column start (1e-8).
     np.testing.assert_allclose(width, whole_width, rtol=0, atol=1e-4)
     assert np.count_nonzero(thin.is_under(width, cap) != thin.is_under(whole_width, cap)) == 0
+    none = np.zeros(0, np.int64)
+    assert [a.size for a in thin.widths_at(padded, none, none, cap)] == [0, 0]  # no candidates: nothing measured
