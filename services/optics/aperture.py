@@ -78,7 +78,7 @@ def clear_aperture(stack, *, axis_mm: tuple[float, float], given_mm: float | Non
         mask = outline & inside
         if MIN_ZONE_SHARE * outline.sum() <= mask.sum() < OUTLINE_SHARE * outline.sum():
             return _aperture(stack, mask, "detected",
-                             "Detected: the region where the part's thickness differs from its outer rim's "
+                             "The region where the part's thickness differs from its outer rim's "
                              "(a curved face or cells), inside a flat rim taken as a mount.", axis_mm)
     return _aperture(stack, outline, "outline", "The part's whole outline (holes filled): no flat mounting rim "
                                                 "was found and no aperture was given.", axis_mm)
