@@ -4,6 +4,7 @@ import base64
 import json
 import math
 
+import cv2
 import numpy as np
 import trimesh
 
@@ -64,3 +65,31 @@ def test_markers_carry_the_report_numbers_and_skip_unlocated_findings(make_part)
     assert view["layers"]["count"] == 10 and view["mesh"]["triangles"] == 12
     positions = _decode(view["mesh"]["positions"], np.float32).reshape(-1, 3)
     assert np.allclose(positions.min(axis=0), (0, 0, 0)) and np.allclose(positions.max(axis=0), (4, 4, 1))
+
+
+def test_outlines_read_from_each_runs_box_are_the_whole_frames():
+    """Outlines are traced in each run's solid box (grown by a void pixel): loop for loop and point for point the
+    outlines OpenCV traces on the whole frame, for blobs with holes touching every side of the frame, runs that
+    change, and an empty layer."""
+    from services.layers import LayerStack
+
+    rng = np.random.default_rng(4)
+    yy, xx = np.mgrid[:90, :130]
+    masks = []
+    for k in range(6):
+        mask = (np.hypot(yy - 40, xx - 60) < 38 - 5 * k) & ~(np.hypot(yy - 45, xx - 70) < 6)
+        mask |= (xx < 3) | (yy > 86 - k)  # on the frame's left and bottom edges
+        mask ^= rng.random(mask.shape) < 0.01
+        masks.append(mask)
+    masks.insert(3, np.zeros((90, 130), bool))
+    stack = LayerStack.from_masks(masks, pixel_mm=0.1, layer_height_mm=0.1, origin_mm=(-2.0, 1.0, 0.0))
+    outlines = layer_outlines(stack, max_points=10**9)
+    assert len(outlines["runs"]) == len(masks)
+    for run, (first, last, mask) in zip(outlines["runs"], stack.runs()):
+        contours, _ = cv2.findContours(mask.view(np.uint8), cv2.RETR_LIST, cv2.CHAIN_APPROX_SIMPLE)
+        whole = [c for c in (cv2.approxPolyDP(c, 0.75, True) for c in contours) if len(c) >= 2]
+        assert (run["first"], run["last"]) == (first, last) and len(run["loops"]) == len(whole)
+        for loop, c in zip(run["loops"], whole):
+            xy = _decode(loop, np.float32).reshape(-1, 2)
+            expected = np.column_stack([-2.0 + (c[:, 0, 0] + 0.5) * 0.1, 1.0 + (c[:, 0, 1] + 0.5) * 0.1])
+            np.testing.assert_array_equal(xy, expected.astype(np.float32))
