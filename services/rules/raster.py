@@ -165,7 +165,7 @@ def _dilate_words(words: np.ndarray, rows) -> np.ndarray:
 
 def _same_span(rows) -> dict[tuple[int, int], list[int]]:
     """Return {(a, b): the rows dy spanning a .. b}: a disk's rows above and below its centre share a span, so
-    each span is shifted once (and and or do not mind the order the rows are applied in)."""
+    each span is shifted once (an and, or an or, of the rows gives the same in any order)."""
     spans: dict[tuple[int, int], list[int]] = {}
     for dy, a, b in rows:
         spans.setdefault((a, b), []).append(dy)
@@ -288,7 +288,7 @@ def overlap_pairs(a: np.ndarray, b: np.ndarray, where: np.ndarray | None = None,
 
     ``step`` > 1 samples every step-th row and column: overlaps narrower than that may be missed.
     """
-    if step > 1:  # copied, not viewed: comparisons along contiguous rows run 1.4x faster (7.3 -> 5.2 ms, 2400^2, step 2)
+    if step > 1:  # copied, not viewed: compared along contiguous rows, 7.3 -> 5.9 ms a call with the copy (2400^2, step 2)
         a, b = np.ascontiguousarray(a[::step, ::step]), np.ascontiguousarray(b[::step, ::step])
         where = np.ascontiguousarray(where[::step, ::step]) if where is not None else None
     # Only where a row run of equal (a, b) starts can a new pair appear: look at those pixels alone.

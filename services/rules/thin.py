@@ -118,10 +118,8 @@ def widths_at(mask: np.ndarray, rows: np.ndarray, cols: np.ndarray, cap_px: int)
     span_y, span_x = int(rows.max() - rows.min()), int(cols.max() - cols.min())
     crop_px = min(span_y + 2 * m + 1, mask.shape[0]) * min(span_x + 2 * m + 1, mask.shape[1])
     if crop_px > EDGE_CROP_MAX_PX and rows.size > 1:
-        order = np.argsort(rows if span_y >= span_x else cols, kind="stable")
-        half = order.size // 2
         width, depth = np.empty(rows.size), np.empty(rows.size, np.float32)  # the distance map's type
-        for part in (order[:half], order[half:]):
+        for part in _halves(rows, cols):
             width[part], depth[part] = widths_at(mask, rows[part], cols[part], cap_px)
         return width, depth
     r0, r1 = max(int(rows.min()) - m, 0), min(int(rows.max()) + m + 1, mask.shape[0])
@@ -130,6 +128,13 @@ def widths_at(mask: np.ndarray, rows: np.ndarray, cols: np.ndarray, cap_px: int)
     dist, numbers = raster.nearest_void(crop)
     near = raster.void_index(crop, numbers[rows - r0, cols - c0])
     return widths_across(crop, rows - r0, cols - c0, near, cap_px), dist[rows - r0, cols - c0]
+
+
+def _halves(rows: np.ndarray, cols: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Return the indices of the points' two halves, split along their wider spread (a crop around each is smaller)."""
+    along = rows if np.ptp(rows) >= np.ptp(cols) else cols
+    order = np.argsort(along, kind="stable")
+    return order[:order.size // 2], order[order.size // 2:]
 
 
 def _candidate_reach(cap_px: int) -> int:
@@ -172,10 +177,8 @@ def _edge_to_edge(mask, vy, vx, uy, ux, cap_px: int) -> np.ndarray:
     crop_px = min(span_y + 2 * reach + 1, mask.shape[0]) * min(span_x + 2 * reach + 1, mask.shape[1])
     if vy.size > REMAP_MAX or max(span_y, span_x) + 2 * reach + 1 >= REMAP_MAX or (crop_px > EDGE_CROP_MAX_PX
                                                                                    and vy.size > 1):
-        order = np.argsort(vy if span_y >= span_x else vx, kind="stable")
-        half = order.size // 2
         out = np.empty(vy.size)
-        for part in (order[:half], order[half:]):
+        for part in _halves(vy, vx):
             out[part] = _edge_to_edge(mask, vy[part], vx[part], uy[part], ux[part], cap_px)
         return out
     r0, r1 = int(max(vy.min() - reach, 0)), int(min(vy.max() + reach + 1, mask.shape[0]))
