@@ -86,3 +86,18 @@ def test_it_says_beside_the_verdict_whether_the_requirements_are_met(make_part):
     plain, _ = _text(report_pdf({**report.to_dict(), "meets_requirements": "not_stated", "requirements": None},
                                 report.figures, checked_at=CHECKED_AT))
     assert "Requirements: No requirements stated" in plain
+
+
+def test_a_findings_worst_instances_read_in_three_figures_without_exponents():
+    """Measures of 1,000 or more (a hollow's section in mm2) read as a person writes them in the instance list,
+    as in the finding's own line: '1,470 mm2', never '1.47e+03'."""
+    finding = {"rule": "trapped_volume", "severity": "caution", "message": "Hollows.", "measured": 1466.9,
+               "unit": "mm2", "count": 2, "picture": None,
+               "instances": [{"location_mm": [1.0, 2.0, 3.0], "layers": [4, 9], "measured": 1466.9},
+                             {"location_mm": [5.0, 6.0, 7.0], "layers": [2, 3], "measured": 12.34}]}
+    report = {"design": {"name": "hollow.stl"}, "printer": {"name": "P", "version": 2}, "material": {"name": "M"},
+              "verdict": "printable_with_cautions", "findings": [finding], "estimate": None, "optics": None,
+              "cautions": []}
+    text, _ = _text(report_pdf(report, {}, checked_at=CHECKED_AT))
+    text = text.replace("\n", " ")
+    assert "layers 4-9: 1,470 mm2" in text and "layers 2-3: 12.3 mm2" in text and "e+03" not in text
