@@ -13,6 +13,7 @@ from dataclasses import asdict, dataclass
 import numpy as np
 
 from services.findings import Finding
+from services.numbers_text import significant
 from services.requirements import LABELS, Requirements
 
 MEETS = ("yes", "no", "not_stated")
@@ -274,4 +275,4 @@ def value_text(value: float | None, unit: str) -> str:
     """Return a value with its unit, as the sentences and tables show it."""
     if value is None:
         return "-"
-    return f"{value:.3g}x" if unit == "x" else f"{value:.4g} {unit}" if unit else f"{value:.3g}"
+    return f"{significant(value)}x" if unit == "x" else f"{significant(value, 4)} {unit}" if unit else significant(value)

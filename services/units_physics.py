@@ -10,6 +10,7 @@ from __future__ import annotations
 import numpy as np
 
 from services.findings import Finding
+from services.numbers_text import significant
 from services.intake import UNITS
 from services.optics.materials import wavelength_mm
 
@@ -38,11 +39,11 @@ def units_findings(*, extent_mm: float, unit: str, freqs_ghz, build_volume_mm) -
     if not better:
         return []
     if small:
-        why = (f"is {extent_mm:.3g} mm across, {extent_mm / lam:.2g} wavelengths at {max(freqs_ghz):g} GHz; "
+        why = (f"is {significant(extent_mm)} mm across, {extent_mm / lam:.2g} wavelengths at {max(freqs_ghz):g} GHz; "
                f"a quasi-optical part is at least {MIN_WAVELENGTHS:g} wavelengths across")
     else:
-        why = f"is {extent_mm:.4g} mm across, beyond the printer's largest build dimension of {largest_mm:g} mm"
-    named = "; ".join(f"read in {u} it is {size:.4g} mm ({size / lam:.0f} wavelengths)" for u, size in better)
+        why = f"is {significant(extent_mm, 4)} mm across, beyond the printer's largest build dimension of {largest_mm:g} mm"
+    named = "; ".join(f"read in {u} it is {significant(size, 4)} mm ({size / lam:.0f} wavelengths)" for u, size in better)
     return [Finding("units", "caution", f"Read in {unit}, the part {why}. Was it drawn in another unit? {named}. "
                                         f"Upload it again with the right unit.",
                     measured=extent_mm, limit=MIN_WAVELENGTHS * lam if small else largest_mm, unit="mm")]

@@ -21,8 +21,9 @@ from fpdf import FPDF
 from fpdf.enums import XPos, YPos
 from PIL import Image
 
+from services.numbers_text import significant
 from services.render.tables import (VERDICT_LABELS, location_text, meets_label, measured_text, optics_rows,
-                                    quote_label, requirement_rows, rule_label, severity_counts, three_figures)
+                                    quote_label, requirement_rows, rule_label, severity_counts)
 
 INK, MUTED, LINE = (27, 34, 48), (93, 100, 114), (205, 202, 192)
 VERDICT_RGB = {"printable": (15, 92, 97), "printable_with_cautions": (122, 79, 0), "not_printable": (74, 33, 82)}
@@ -292,7 +293,7 @@ def _finding(doc: _Document, number: int, finding: dict, picture: bytes | None, 
         unit = finding.get("unit") or ""
         unit = "" if unit == "ratio" else f" {unit}"
         lines = [f"{k}. ({', '.join(f'{v:.2f}' for v in i['location_mm'])}) mm, layers {i['layers'][0]}-"
-                 f"{i['layers'][1]}: {three_figures(i['measured'])}{unit}" for k, i in enumerate(worst, start=1)]
+                 f"{i['layers'][1]}: {significant(i['measured'])}{unit}" for k, i in enumerate(worst, start=1)]
         doc.set_font(FONT, "", 8)
         doc.set_text_color(*MUTED)
         doc.multi_cell(text_w, 4.0, f"The worst {len(worst)} of {finding.get('count', len(worst))}: " + "; ".join(lines)

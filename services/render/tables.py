@@ -7,9 +7,8 @@ older or partial report (a missing value is None and shows as a dash).
 
 from __future__ import annotations
 
-import math
-
 from services.findings import RULE_LABELS, rule_label  # noqa: F401 (the pages and PDF read them here)
+from services.numbers_text import significant
 from services.requirement_check import value_text
 
 SEVERITY_ORDER = ("blocker", "caution", "note")
@@ -148,18 +147,11 @@ def measured_text(finding: dict) -> str:
             return f"{int(round(n)):,} {COUNT_UNITS[unit] if int(round(n)) == 1 else unit}"
         return count(measured) + (f" against a limit of {count(limit)}" if limit is not None else "")
     if unit == "ratio":
-        text = f"{three_figures(measured)} (height over width)"
-        return text + (f" against a limit of {three_figures(limit)}" if limit is not None else "")
+        text = f"{significant(measured)} (height over width)"
+        return text + (f" against a limit of {significant(limit)}" if limit is not None else "")
     suffix = f" {unit}" if unit else ""
-    text = f"{three_figures(measured)}{suffix}"
-    return text + (f" against a limit of {three_figures(limit)}{suffix}" if limit is not None else "")
-
-
-def three_figures(value: float) -> str:
-    """Return a value to three significant figures as a reader writes it: 0.0159, 6.2, 1,470 (not 1.47e+03)."""
-    if value and 1e3 <= abs(value) < 1e15:
-        return f"{round(value, 2 - math.floor(math.log10(abs(value)))):,.0f}"
-    return f"{value:.3g}"
+    text = f"{significant(measured)}{suffix}"
+    return text + (f" against a limit of {significant(limit)}{suffix}" if limit is not None else "")
 
 
 def meets_label(value: str | None) -> str:

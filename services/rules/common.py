@@ -10,6 +10,7 @@ from scipy.sparse.csgraph import connected_components
 
 from services import pictures
 from services.findings import SEVERITIES, Finding, instance_rows
+from services.numbers_text import significant
 from services.rules import RuleOutput
 
 
@@ -172,8 +173,8 @@ def output(findings: list[Finding], figures: dict | None = None, summary: dict |
 
 
 def fmt_mm(value: float) -> str:
-    """Return a length for a message: 0.12 mm, 1.5 mm, 12 mm."""
-    return f"{value:.3g}"
+    """Return a length for a message: 0.12 mm, 1.5 mm, 12 mm, 1,200 mm."""
+    return significant(value)
 
 
 def fmt_xyz(location: tuple[float, float, float]) -> str:
