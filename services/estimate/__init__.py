@@ -52,6 +52,7 @@ class Estimate:
     quantities: tuple[QuantityRow, ...]
     layout: tuple[Placement, ...] = ()
     notes: tuple[str, ...] = ()
+    waste_fraction: float = 0.0  # the material's waste factor, included in material_ml
 
     def to_dict(self) -> dict:
         return {
@@ -59,6 +60,8 @@ class Estimate:
             "mesh_volume_ml": None if self.mesh_volume_ml is None else round(self.mesh_volume_ml, 4),
             "support_volume_ml": round(self.support_volume_ml, 4), "support_source": self.support_source,
             "material_ml": round(self.material_ml, 4), "material_g": round(self.material_g, 4),
+            "waste_ml": round(self.material_ml - self.part_volume_ml - self.support_volume_ml, 4),
+            "waste_percent": round(100.0 * self.waste_fraction, 2),
             "material_cost": round(self.material_cost, 2),
             "print_time_s": round(self.print_time_s, 1), "print_time_text": self.print_time_text,
             "calibrated": self.calibrated,
@@ -101,7 +104,7 @@ def estimate_print(*, stack: LayerStack, part: Part, printer: PrinterProfile, ma
         material_cost=use.cost, print_time_s=time_s, print_time_text=format_duration(time_s),
         calibrated=calibrated, calibration=calibration, time_model=model, layers=stack.count,
         height_mm=stack.count * stack.layer_height_mm, footprint_mm=footprint, parts_per_build=len(layout),
-        cost=cost, quantities=rows, layout=layout,
+        cost=cost, quantities=rows, layout=layout, waste_fraction=material.waste_factor,
         notes=_notes(loads, part, printer, layout, calibration, support_source),
     )
 

@@ -179,6 +179,13 @@ def _minutes(seconds) -> str:
     return f"{minutes // 60} h {minutes % 60:02d} min" if minutes >= 60 else f"{minutes} min"
 
 
+def _waste(estimate: dict) -> str:
+    """Return ' (0.11 ml of it waste, the material's 10 %)', or nothing for a report stored before the field."""
+    if estimate.get("waste_ml") is None:
+        return ""
+    return f" ({estimate['waste_ml']:.2f} ml of it waste, the material's {estimate.get('waste_percent', 0):g} %)"
+
+
 def _quote(doc: _Document, estimate: dict | None) -> None:
     _heading(doc, "Quote and print time", room_mm=70)
     if not estimate:
@@ -188,7 +195,7 @@ def _quote(doc: _Document, estimate: dict | None) -> None:
     currency = cost.get("currency", "")
     calibrated = "calibrated from logged prints" if estimate.get("calibrated") else "not yet calibrated"
     _text(doc, f"Print time for one part: {_minutes(estimate.get('print_time_s'))} ({calibrated}); material "
-               f"{estimate.get('material_ml', 0):.2f} ml, {estimate.get('material_g', 0):.1f} g; "
+               f"{estimate.get('material_ml', 0):.2f} ml{_waste(estimate)}, {estimate.get('material_g', 0):.1f} g; "
                f"{_parts(estimate.get('parts_per_build'))} fit on one build.")
     doc.ln(1)
     lines = [["Item", "Detail", f"Amount ({currency})"]]

@@ -15,6 +15,7 @@ import cv2
 import numpy as np
 
 from services.findings import Finding, instance_rows, rule_label
+from services.numbers_text import significant
 from services.rules import raster
 from services.rules.common import RuleCollector, family_check, fmt_xyz, output, picture, severity_of
 from services.rules.overhang import FLAT_STEPS, reach_px, undersides
@@ -66,7 +67,7 @@ class Collector(RuleCollector):
         where = frame.location(at, k)
         n = int(area.size)
         message = (f"{n} region{'s' if n > 1 else ''} of a layer rest{'' if n > 1 else 's'} on nothing below "
-                   f"(the largest {area_mm2:.2f} mm2 at {fmt_xyz(where)}); add supports under "
+                   f"(the largest {significant(area_mm2)} mm2 at {fmt_xyz(where)}); add supports under "
                    f"{'them' if n > 1 else 'it'} or turn the part.")
         view = RunView(frame, -1, k, k, frame.layer(k), None, None)
         view.prev = RunView(frame, -1, k - 1, k - 1, frame.layer(k - 1), None, None)

@@ -24,6 +24,7 @@ import cv2
 import numpy as np
 
 from services.findings import Finding, rule_label
+from services.numbers_text import significant
 from services.rules import raster
 from services.rules.common import RuleCollector, family_check, fmt_xyz, limit_mm, output, picture, severity_of
 from services.rules.scan import RunView, layer_count_dtype
@@ -199,7 +200,7 @@ class Collector(RuleCollector):
         where = frame.location(flat, k)
         n = count - 1
         message = (f"{n} downward-facing surface{'s' if n > 1 else ''} shallower than {self.angle:g} deg "
-                   f"({area_mm2:.1f} mm2 in plan; the shallowest {angle:.0f} deg at {fmt_xyz(where)}) "
+                   f"({significant(area_mm2)} mm2 in plan; the shallowest {angle:.0f} deg at {fmt_xyz(where)}) "
                    f"need supports; add supports there or turn the part so they face up or stand steeper.")
         view = RunView(frame, -1, k, k, frame.layer(k), None, None)
         view.prev = RunView(frame, -1, k - 1, k - 1, frame.layer(k - 1), None, None)

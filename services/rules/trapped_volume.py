@@ -22,6 +22,7 @@ from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components
 
 from services.findings import Finding, rule_label
+from services.numbers_text import significant
 from services.rules.common import RuleCollector, family_check, fmt_xyz, limit_mm, output, picture, severity_of
 from services.rules.scan import RunView
 
@@ -167,7 +168,7 @@ class Collector(RuleCollector):
         k, flat, count = int(first[node]), int(at[node]), int(big.sum())
         hole = f" of {self.drain_mm:g} mm or more" if self.drain_mm else ""
         cup_text = (f"{count} hollow{'s' if count > 1 else ''} open only away from the build plate will act as "
-                    f"suction cups against the vat film (the largest {largest[worst] * frame.px ** 2:.1f} mm2 in "
+                    f"suction cups against the vat film (the largest {significant(largest[worst] * frame.px ** 2)} mm2 in "
                     "section); ")
         zone = self._optical_zone(frame)
         outside = [] if zone is None else [i for i in np.flatnonzero(cavity == worst) if not zone.flat[int(at[i])]]

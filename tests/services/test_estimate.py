@@ -209,6 +209,9 @@ def test_material_mass_is_density_times_volume():
     assert est.material_g == pytest.approx(est.material_ml * 1.245, rel=1e-12)
     assert 1.24 * est.material_ml <= est.material_g <= 1.25 * est.material_ml
     assert est.material_cost == pytest.approx(est.material_g / 1000 * pla.price, rel=1e-12)  # priced per kg
+    shown = est.to_dict()  # the report says where the used material beyond part and supports goes
+    assert shown["waste_ml"] == pytest.approx(pla.waste_factor * 1.0, abs=1e-4)
+    assert shown["waste_percent"] == pytest.approx(100 * pla.waste_factor)
 
 
 def test_resin_is_priced_per_litre():

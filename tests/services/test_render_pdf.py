@@ -48,6 +48,8 @@ def test_it_carries_what_a_purchase_request_needs(finned_report):
     assert "Optics at the design frequencies" in text and "εr" in text  # Greek needs the embedded font
     assert "Safety reminders" in text and "nitrile gloves" in text
     assert reader.metadata.title.startswith("finned.stl on Bay 1")
+    waste = f"({report['estimate']['waste_ml']:.2f} ml of it waste, the material's 10 %)"  # the catalogue's 0.1
+    assert waste in text.replace("\n", " ")
 
 
 def test_it_embeds_the_pictures(finned_report):

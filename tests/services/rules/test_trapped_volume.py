@@ -2,6 +2,7 @@
 
 from manifold3d import Manifold
 
+from services.numbers_text import significant
 from services.rules import trapped_volume
 
 LIMITS = {"severity": "blocker", "cup_severity": "caution", "drain_hole_mm": 2.5}
@@ -40,6 +41,16 @@ def test_a_box_open_at_the_top_is_a_cup_for_a_vat_printer(stack_of, printer, run
     assert f.severity == "caution" and "suction" in f.message and "vent hole of 2.5 mm" in f.message
     assert abs(f.measured - 64.0) <= 0.02 * 64.0  # its 8 x 8 mm section
     assert 1.0 <= f.location_mm[2] <= 1.1  # vent near the closed end, by the build plate
+
+
+def test_a_wide_cups_section_reads_in_its_sentence_as_its_measure_does(stack_of, printer, run_check):
+    """A 38 x 38 mm cup: 1,444 mm2 by construction, written "1,440 mm2" in the sentence as on the measure line
+    (it read "1444.0 mm2"; services.numbers_text)."""
+    box = Manifold.cube((40.0, 40.0, 3.0)) - Manifold.cube((38.0, 38.0, 3.0)).translate((1.0, 1.0, 1.0))
+    part, stack = stack_of(box)
+    (f,) = run_check(trapped_volume, part, stack, printer(trapped_volume=LIMITS)).findings
+    assert abs(f.measured - 1444.0) <= 0.02 * 1444.0
+    assert f"the largest {significant(f.measured)} mm2 in section" in f.message and "1,4" in f.message
 
 
 def test_extrusion_only_notes_a_sealed_cavity(stack_of, printer, run_check):

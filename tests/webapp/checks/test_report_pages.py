@@ -31,6 +31,7 @@ def test_the_report_reads_verdict_first_then_findings_with_pictures(alice_client
     for name in ("perspective.png", "thickness_map.png", "optics_loss.png"):
         assert reverse("check_file", args=[check.public_id, name]) in page
     assert f"{finned_report.estimate['cost']['total']:,.2f}" in page and "Set-up labour" in page
+    assert f"waste {finned_report.estimate['waste_ml']:.2f} ml at the material's 10 %" in page  # part + supports + waste
     assert reverse("check_pdf", args=[check.public_id]) in page and "nitrile gloves" in page
 
 
