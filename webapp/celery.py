@@ -68,6 +68,14 @@ def start_heartbeat(**_) -> None:
     HEARTBEAT.start(settings.PHASEWRIGHT_HEARTBEAT_S, hold_taken_s=settings.PHASEWRIGHT_STALE_AFTER_S)
 
 
+@worker_ready.connect
+def stop_with_serve(**_) -> None:
+    """A worker `manage.py serve` started stops once that serve is gone (webapp.checks.parent_watch)."""
+    from webapp.checks.parent_watch import watch_parent
+
+    watch_parent()
+
+
 @worker_shutdown.connect
 def stop_heartbeat(**_) -> None:
     from webapp.checks.heartbeat import HEARTBEAT

@@ -1,5 +1,6 @@
 """`manage.py serve` keeps a worker running: a killed one is replaced at once, a broken one is not looped."""
 
+import contextlib
 import io
 import subprocess
 import sys
@@ -77,3 +78,41 @@ def test_the_worker_serve_starts_has_that_many_pool_processes(monkeypatch, setti
     serve.Command(stdout=io.StringIO())._start_worker()
     [argv] = started
     assert argv[argv.index("--concurrency") + 1] == "3"
+
+
+def test_the_worker_watch_asks_for_a_warm_shutdown_once_its_parent_is_gone(tmp_path):
+    """A stand-in worker under a stand-in serve: SIGKILL the serve, and the worker gets SIGTERM (warm shutdown)."""
+    import os
+    import signal
+
+    from tests.reliability.servers import wait_until
+
+    worker = (
+        "import os, signal, sys, time\n"
+        "from webapp.checks.parent_watch import PARENT_ENV, watch_parent\n"
+        f"signal.signal(signal.SIGTERM, lambda *_: (open({str(tmp_path / 'term')!r}, 'w').close(), os._exit(0)))\n"
+        "assert os.environ[PARENT_ENV] == str(os.getppid())\n"
+        f"watch_parent(every_s=0.05); open({str(tmp_path / 'ready')!r}, 'w').close(); time.sleep(30)\n")
+    parent = (
+        "import os, subprocess, sys, time\n"
+        "from webapp.checks.parent_watch import PARENT_ENV\n"
+        f"subprocess.Popen([sys.executable, '-c', {worker!r}], env={{**os.environ, PARENT_ENV: str(os.getpid())}})\n"
+        "time.sleep(30)\n")
+    serve_stand_in = subprocess.Popen([sys.executable, "-c", parent], start_new_session=True)
+    try:
+        wait_until(lambda: (tmp_path / "ready").exists(), timeout_s=20, what="the stand-in worker watching")
+        time.sleep(0.2)
+        assert not (tmp_path / "term").exists()  # a living parent is left alone
+        os.kill(serve_stand_in.pid, signal.SIGKILL)
+        wait_until(lambda: (tmp_path / "term").exists(), timeout_s=5, what="the worker asking itself to stop")
+    finally:
+        with contextlib.suppress(ProcessLookupError):
+            os.killpg(serve_stand_in.pid, signal.SIGKILL)
+        serve_stand_in.wait()
+
+
+def test_a_worker_not_started_by_serve_is_not_watched(monkeypatch):
+    from webapp.checks.parent_watch import PARENT_ENV, watch_parent
+
+    monkeypatch.delenv(PARENT_ENV, raising=False)
+    assert watch_parent() is None

@@ -1,4 +1,5 @@
-"""Start the site, one real Celery worker process and the sweeper; Ctrl-C stops them all.
+"""Start the site, one real Celery worker process and the sweeper; Ctrl-C (or SIGTERM, or a closed terminal's
+SIGHUP) stops them all, and a worker whose serve was killed outright stops by itself (webapp.checks.parent_watch).
 
 The worker runs PHASEWRIGHT_SERVE_CHECKS_AT_ONCE checks at once (one pool process each, default one per
 core up to two), so a large part does not hold up the small ones behind it; each pool process has its own
@@ -17,6 +18,7 @@ from django.conf import settings
 from django.core.management import call_command
 from django.core.management.base import BaseCommand
 
+from webapp.checks.parent_watch import PARENT_ENV
 from webapp.checks.sweeper import sweep_every
 
 WORKER_POLL_S = 1.0
@@ -32,6 +34,10 @@ class Command(BaseCommand):
 
     def handle(self, *args, port, **options):
         stop = threading.Event()
+        # SIGTERM and SIGHUP would end this process without its clean-up: the worker, in a session of its own,
+        # would live on and take the next serve's checks with the old code. As SystemExit they unwind to it.
+        for sig in (signal.SIGTERM, signal.SIGHUP):
+            signal.signal(sig, _exit_on)
         self.worker = self._start_worker()
         broker = settings.CELERY_BROKER_URL.split("://")[0]
         self.stdout.write(f"worker started (pid {self.worker.pid}, broker: {broker}, "
@@ -53,7 +59,8 @@ class Command(BaseCommand):
         # Its own process group: stopping it (or it dying) never takes the site with it.
         return subprocess.Popen([sys.executable, "-m", "celery", "-A", "webapp", "worker", "--loglevel", "INFO",
                                  "--concurrency", str(settings.PHASEWRIGHT_SERVE_CHECKS_AT_ONCE),
-                                 "--hostname", "phasewright-dev@%h"], start_new_session=True)
+                                 "--hostname", "phasewright-dev@%h"], start_new_session=True,
+                                env={**os.environ, PARENT_ENV: str(os.getpid())})
 
     def _keep_worker(self, stop: threading.Event) -> None:
         """Start a new worker whenever the running one exits without being asked to."""
@@ -89,3 +96,7 @@ class Command(BaseCommand):
             pass
         worker.wait()
         self.stdout.write("site, worker and sweeper stopped")
+
+
+def _exit_on(signum, _frame) -> None:
+    raise SystemExit(128 + signum)
