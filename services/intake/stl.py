@@ -77,7 +77,8 @@ def _read_stl_ascii(data: bytes, *, name: str) -> tuple[np.ndarray, np.ndarray]:
         raise _refuse("stl_malformed", name, "the ASCII STL holds text where numbers belong; export the "
                       "part again.") from exc
     if values.size != 12 * done:
-        raise _refuse("stl_malformed", name, f"the ASCII STL has {done:,} facets but {values.size:,} numbers "
-                      f"instead of {12 * done:,}; export the part again.")
+        raise _refuse("stl_malformed", name, f"the ASCII STL has {done:,} facet{'s' if done != 1 else ''} but "
+                      f"{values.size:,} numbers instead of {12 * done:,} (a normal and three corners each); export "
+                      "the part again.")
     tris = values.reshape(done, 4, 3)[:, 1:]
     return tris.reshape(-1, 3), np.arange(3 * done, dtype=np.int64).reshape(-1, 3)

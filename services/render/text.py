@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from services.estimate.time_models import format_duration
+from services.numbers_text import significant
 
 
 MEETS_WORDS = {"yes": "yes", "no": "NO", "not_stated": "none stated"}
@@ -41,7 +42,7 @@ def report_text(r: dict) -> str:
         lines.append(f"  transmission loss: {loss}")
         zone = opt.get("clear_aperture")
         if zone:
-            lines.append(f"  clear aperture ({zone['how']}): {zone['area_mm2']:.1f} mm2")
+            lines.append(f"  clear aperture ({zone['how']}): {significant(zone['area_mm2'], 4)} mm2")
         vortex = opt.get("vortex")
         if vortex:
             purity = ", ".join(f"{f:g} GHz {p:.3f}" for f, p in zip(opt["frequencies_ghz"],

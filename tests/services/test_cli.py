@@ -47,6 +47,18 @@ def test_a_mixed_batch_keeps_going_and_exits_2(box_path, tmp_path, capsys):
     assert len(err.strip().splitlines()) == 1 and "noise.stl" in err
 
 
+def test_a_bad_files_text_line_names_it_once(tmp_path, capsys):
+    """'a.stl: ERROR a.stl: the file ...' named the file twice; the summary line names it once, stderr keeps it.
+    A one-facet ASCII STL with two corners is one facet, not '1 facets'."""
+    bad = tmp_path / "broken.stl"
+    bad.write_text("solid x\nfacet normal 0 0 1\nouter loop\nvertex 0 0 0\nvertex 1 0 0\nendloop\nendfacet\nendsolid\n")
+    assert main(["check", str(bad), *CHECK]) == 2
+    out, err = capsys.readouterr()
+    assert out.strip() == (f"{bad}: ERROR: the ASCII STL has 1 facet but 9 numbers instead of 12 (a normal and "
+                           "three corners each); export the part again.")
+    assert err.strip().startswith("phasewright: broken.stl: the ASCII STL has 1 facet but")
+
+
 def test_it_writes_report_files_to_out(box_path, tmp_path, capsys):
     """--out writes the JSON report and the pictures for each file."""
     out = tmp_path / "reports"

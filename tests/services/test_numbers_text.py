@@ -28,3 +28,14 @@ def test_targets_findings_and_limits_read_without_exponents():
     assert value_text(1.25, "x") == "1.25x" and value_text(None, "mm") == "-"
     assert fmt_mm(1200.0) == "1,200" and fmt_mm(0.12) == "0.12"
     assert measured_text({"measured": 1466.9, "limit": 1200.0, "unit": "mm"}) == "1,470 mm against a limit of 1,200 mm"
+
+
+def test_the_terminal_summary_writes_the_clear_aperture_as_the_page_does():
+    """It read '2827.4 mm2'; four figures with the thousands separated, as a reader writes an area."""
+    from services.render.text import report_text
+
+    report = {"design": {"name": "lens.stl", "triangles": 20462, "bbox_mm": [60, 60, 4.2]}, "layers": {"count": 84},
+              "verdict": "printable", "printer": {"name": "Bay 1"}, "material": {"name": "resin"}, "findings": [],
+              "optics": {"frequencies_ghz": [140.0], "transmission_loss_db": [2.47],
+                         "clear_aperture": {"how": "outline", "area_mm2": 2827.43}}}
+    assert "  clear aperture (outline): 2,827 mm2" in report_text(report).splitlines()
