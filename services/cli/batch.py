@@ -30,7 +30,7 @@ from concurrent.futures import FIRST_COMPLETED, ThreadPoolExecutor, wait
 from dataclasses import asdict, dataclass
 from pathlib import Path
 
-from services.cli.common import parse_freqs
+from services.cli.common import parse_freqs, without_name
 from services.cli.requirements import add_requirement_options, requirements_from
 from services.errors import UnusableInput
 
@@ -293,7 +293,7 @@ class Progress:
             if self.tty:
                 self._draw()
             else:
-                outcome = (f"ERROR {row.error}" if row.error
+                outcome = (f"ERROR: {without_name(row.error, row.file)}" if row.error
                            else f"{row.verdict} ({_count(row.blockers, 'blocker')}, {_count(row.cautions, 'caution')})")
                 print(f"[{self.finished}/{self.total}] {row.file}: {outcome}", file=self.stream, flush=True)
 
@@ -479,7 +479,7 @@ def format_table(rows: list[Row], *, width: int = 36) -> str:
     for r in rows:
         name = r.file if len(r.file) <= width else "…" + r.file[-(width - 1):]
         if r.error:
-            lines.append(f"{name:{width}}  ERROR {r.error[:80]}")
+            lines.append(f"{name:{width}}  ERROR: {without_name(r.error, r.file)[:80]}")
             continue
         cost = f"{r.total_cost:,.2f}" if r.total_cost is not None else "-"
         ml = f"{r.material_ml:.2f}" if r.material_ml is not None else "-"

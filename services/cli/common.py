@@ -97,11 +97,12 @@ def print_results(results: list[dict], fmt: str) -> None:
     from services.render.text import report_text
 
     for r in results:
-        print(f"{r['path']}: ERROR: {_without_name(r['error'], r['path'])}" if "error" in r else report_text(r))
+        print(f"{r['path']}: ERROR: {without_name(r['error'], r['path'])}" if "error" in r else report_text(r))
 
 
-def _without_name(sentence: str, path: str) -> str:
-    """Return an error's sentence without the file's name it starts with (the line names the file already)."""
+def without_name(sentence: str, path: str) -> str:
+    """Return an error's sentence without the file's name it starts with, for a line that names the file already
+    (intake starts its sentences with the name, for the logs and the CSV that carry them alone)."""
     for name in (path, Path(path).name):
         if sentence.startswith(f"{name}: "):
             return sentence[len(name) + 2:]

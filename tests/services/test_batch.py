@@ -329,7 +329,7 @@ def test_progress_is_plain_lines_off_a_terminal_and_a_bar_on_one(tmp_path):
     run_batch(tmp_path, _opts(jobs=1), client=_client(FakeApi()), stream=plain, tty=False)
     run_batch(tmp_path, _opts(jobs=1), client=_client(FakeApi()), stream=bar, tty=True)
     assert plain.getvalue().splitlines() == ["[1/2] a.stl: printable (0 blockers, 0 cautions)",
-                                             "[2/2] b.stl: ERROR The file is not a mesh."]
+                                             "[2/2] b.stl: ERROR: The file is not a mesh."]
     assert "\r[" + "#" * 30 + "] 2/2 files, 1 errors" in bar.getvalue() and bar.getvalue().endswith("\n")
 
 
@@ -350,7 +350,7 @@ def test_the_command_takes_the_token_from_the_environment(folder, monkeypatch, c
     code = main(["batch", str(folder), "--server", SERVER, "--printer", "bay1-lcd-resin", "--material",
                  "standard-resin", "--out", str(tmp_path / "s.csv"), "--fail-on", "caution"])
     out = capsys.readouterr().out
-    assert code == 2 and "a-good.stl" in out and "ERROR The file is not a mesh." in out and "summary:" in out
+    assert code == 2 and "a-good.stl" in out and "ERROR: The file is not a mesh." in out and "summary:" in out
     monkeypatch.delenv("PHASEWRIGHT_TOKEN")
     assert main(["batch", str(folder), "--server", SERVER, "--printer", "x", "--material", "y"]) == 2
     assert "PHASEWRIGHT_TOKEN" in capsys.readouterr().err
@@ -372,7 +372,7 @@ def test_the_table_is_short_and_readable():
                       total_cost=12.5), batch.Row(file="b.stl", error="b.stl: the file is empty.")]
     lines = batch.format_table(rows).splitlines()
     assert len(lines) == 3 and "1.5 h" in lines[1] and "12.50" in lines[1]
-    assert "ERROR b.stl: the file is empty." in lines[2]
+    assert lines[2].endswith("  ERROR: the file is empty.")  # the file is named once, in its column
 
 
 def test_the_state_file_is_replaced_whole(tmp_path):
