@@ -86,6 +86,11 @@ def test_a_failed_check_says_what_happened_and_what_to_do(alice_client, alice, s
     services.check_fail(check_id=check.pk, code="not_a_mesh", message="noise.stl: this is not a mesh file.")
     page = alice_client.get(reverse("check", args=[check.public_id])).content.decode()
     assert "noise.stl: this is not a mesh file." in page and "What to do:" in page and "progressbar" not in page
+    # The design's page and the designs list say why, not only "failed" (read as a designer would, through make run).
+    design_page = alice_client.get(reverse("design", args=[design.public_id])).content.decode()
+    assert "noise.stl: this is not a mesh file." in design_page
+    listed = alice_client.get(reverse("designs")).content.decode()
+    assert 'title="noise.stl: this is not a mesh file."' in listed
 
 
 def test_a_revision_shows_what_changed(alice_client, alice, finned_report, fixed_report, make_done_check):
