@@ -13,3 +13,15 @@ def test_the_printer_page_names_rules_and_limits_in_words(bob_client, seeded):
     assert not re.findall(r"\b[a-z]+_[a-z_]+\b", limits)
     sources = text[text.index("Sources"):]
     assert "rules.min_gap" not in sources and "Minimum gap – Gap in XY, mm" in sources
+
+
+def test_the_printer_list_spells_technologies_as_the_trade_does(bob_client, seeded):
+    """'Lcd masked' read as a key with its underscore dropped; the list and the profile say 'LCD-masked'."""
+    import re
+
+    page = bob_client.get("/catalogue/printers/").content.decode()
+    text = " ".join(re.sub(r"<[^>]+>", " ", page).split())
+    assert "LCD-masked vat photopolymerisation" in text and "laser-scanned vat photopolymerisation" in text
+    assert "lcd masked" not in text.lower().replace("lcd-masked", "")
+    profile = bob_client.get("/catalogue/printers/bay1-lcd-resin/").content.decode()
+    assert "LCD-masked (vat photopolymerisation)" in profile

@@ -48,6 +48,11 @@ def value_text(value) -> str:
     return str(value)
 
 
+# Names the trade writes otherwise than their keys read with spaces ("lcd masked").
+SPELLED = {"lcd_masked": "LCD-masked", "projector_masked": "projector-masked", "laser_scanned": "laser-scanned"}
+
+
 @register.filter
 def words(value: str) -> str:
-    return str(value or "").replace("_", " ")
+    """Return a catalogue key (a process, a technology) as words: 'vat photopolymerisation', 'LCD-masked'."""
+    return SPELLED.get(str(value or ""), str(value or "").replace("_", " "))
