@@ -148,12 +148,23 @@ class LayerStack:
         for first, last, d in self._spans():
             yield first, last, self._unpack(d)
 
-    def run_boxes(self) -> Iterator[tuple[int, int, tuple[int, int], np.ndarray]]:
+    def run_boxes(self, which: Sequence[int] | None = None) -> Iterator[tuple[int, int, tuple[int, int], np.ndarray]]:
         """Yield (first, last inclusive, (row0, col0), mask) for each run, the mask cut to the run's solid box (outside
-        it the layer is empty): for work that need not touch the whole frame."""
-        for first, last, d in self._spans():
+        it the layer is empty): for work that need not touch the whole frame. ``which``: only those runs (numbered
+        from 0 in build order), in the order given."""
+        if which is None:
+            spans = self._spans()
+        else:
+            every = list(self._spans())
+            spans = (every[i] for i in which)
+        for first, last, d in spans:
             (r0, c0), box = self._unpack_box(d)
             yield first, last, (r0, c0), box
+
+    @property
+    def run_count(self) -> int:
+        """Return the number of runs of identical consecutive layers."""
+        return int(np.count_nonzero(np.diff(self._index, prepend=-1)))
 
     def packed_runs(self) -> Iterator[tuple[int, int, np.ndarray]]:
         """Yield (first, last inclusive, packed layer) for each run: the whole frame as np.packbits along x, (ny,

@@ -93,3 +93,47 @@ def test_outlines_read_from_each_runs_box_are_the_whole_frames():
             xy = _decode(loop, np.float32).reshape(-1, 2)
             expected = np.column_stack([-2.0 + (c[:, 0, 0] + 0.5) * 0.1, 1.0 + (c[:, 0, 1] + 0.5) * 0.1])
             np.testing.assert_array_equal(xy, expected.astype(np.float32))
+
+
+def _squares_stack(counts):
+    """Return a stack whose run k holds counts[k] separate 4 x 4 px squares (four points each once traced)."""
+    from services.layers import LayerStack
+
+    masks = []
+    for k, n in enumerate(counts):
+        mask = np.zeros((50, 200), bool)
+        for j in range(n):  # odd runs one pixel to the right: no two neighbouring layers are alike, one run each
+            r, c = 1 + 6 * (j // 33), 1 + k % 2 + 6 * (j % 33)
+            mask[r:r + 4, c:c + 4] = True
+        masks.append(mask)
+    return LayerStack.from_masks(masks, pixel_mm=0.1, layer_height_mm=0.1, origin_mm=(0.0, 0.0, 0.0))
+
+
+def test_outlines_of_many_runs_are_thinned_from_a_sample_without_tracing_every_run(monkeypatch):
+    """64 runs of 50-59 squares (200-236 points each) under a 2,000-point bound: all traced, the exact thinning
+    would be every ceil(13,968 / 2,000) = 7th run; the sample picks it (or one more) and traces far fewer runs.
+    With most points in a few runs the sample underestimates, and the runs shown are thinned further until they fit."""
+    from services import part_view
+
+    calls = []
+    real = part_view._run_loops
+    monkeypatch.setattr(part_view, "_run_loops", lambda *a: calls.append(1) or real(*a))
+    counts = [50 + k % 10 for k in range(64)]
+    stack = _squares_stack(counts)
+    whole = layer_outlines(stack, max_points=10**9)
+    assert [sum(len(_decode(loop, np.float32)) // 2 for loop in r["loops"]) for r in whole["runs"]] == [4 * n for n in counts]
+    calls.clear()
+    exact = int(np.ceil(4 * sum(counts) / 2000))
+    outlines = layer_outlines(stack, max_points=2000)
+    assert exact <= outlines["every"] <= exact + 1 and len(calls) < 64 / 2
+    shown = [r["first"] for r in outlines["runs"]]
+    assert shown == list(range(0, 64, outlines["every"]))
+    points = sum(len(_decode(loop, np.float32)) // 2 for r in outlines["runs"] for loop in r["loops"])
+    assert points <= 2000 and points == sum(4 * counts[k] for k in shown)
+
+    lopsided = [1] * 64
+    for k in (3, 5, 7, 9, 11, 13):
+        lopsided[k] = 400  # none of them in the sample (every 4th run)
+    outlines = layer_outlines(_squares_stack(lopsided), max_points=2000)
+    shown = [r["first"] for r in outlines["runs"]]
+    assert sum(4 * lopsided[k] for k in shown) <= 2000 and shown == list(range(0, 64, outlines["every"]))
