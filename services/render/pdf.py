@@ -180,8 +180,9 @@ def _minutes(seconds) -> str:
 
 
 def _waste(estimate: dict) -> str:
-    """Return ' (0.11 ml of it waste, the material's 10 %)', or nothing for a report stored before the field."""
-    if estimate.get("waste_ml") is None:
+    """Return ' (0.11 ml of it waste, the material's 10 %)', or nothing for a material with no waste or a report
+    stored before the field."""
+    if not estimate.get("waste_ml"):
         return ""
     return f" ({estimate['waste_ml']:.2f} ml of it waste, the material's {estimate.get('waste_percent', 0):g} %)"
 

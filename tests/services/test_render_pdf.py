@@ -103,3 +103,11 @@ def test_a_findings_worst_instances_read_in_three_figures_without_exponents():
     text, _ = _text(report_pdf(report, {}, checked_at=CHECKED_AT))
     text = text.replace("\n", " ")
     assert "layers 4-9: 1,470 mm2" in text and "layers 2-3: 12.3 mm2" in text and "e+03" not in text
+
+
+def test_a_material_without_waste_says_nothing_of_it(finned_report):
+    """'0.00 ml of it waste, the material's 0 %' would be noise: the clause is left out."""
+    report = finned_report.to_dict()
+    report["estimate"] = {**report["estimate"], "waste_ml": 0.0, "waste_percent": 0.0}
+    text, _ = _text(report_pdf(report, finned_report.figures, checked_at=CHECKED_AT))
+    assert "of it waste" not in text and "Print time for one part" in text

@@ -36,8 +36,9 @@ class Command(BaseCommand):
         stop = threading.Event()
         # SIGTERM and SIGHUP would end this process without its clean-up: the worker, in a session of its own,
         # would live on and take the next serve's checks with the old code. As SystemExit they unwind to it.
-        for sig in (signal.SIGTERM, signal.SIGHUP):
-            signal.signal(sig, _exit_on)
+        if threading.current_thread() is threading.main_thread():  # (handlers can only be set there)
+            for sig in (signal.SIGTERM, signal.SIGHUP):
+                signal.signal(sig, _exit_on)
         self.worker = self._start_worker()
         broker = settings.CELERY_BROKER_URL.split("://")[0]
         self.stdout.write(f"worker started (pid {self.worker.pid}, broker: {broker}, "
