@@ -14,6 +14,7 @@ import logging
 import os
 import signal
 import threading
+import time
 
 PARENT_ENV = "PHASEWRIGHT_SERVE_PID"
 WATCH_EVERY_S = 1.0
@@ -33,9 +34,8 @@ def watch_parent(every_s: float = WATCH_EVERY_S) -> threading.Thread | None:
 
 
 def _watch(parent: int, every_s: float) -> None:
-    stop = threading.Event()
     while os.getppid() == parent:
-        stop.wait(every_s)
+        time.sleep(every_s)
     logger.warning("the serve process that started this worker (pid %s) is gone: stopping after the running check",
                    parent)
     os.kill(os.getpid(), signal.SIGTERM)
