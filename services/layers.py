@@ -166,16 +166,13 @@ class LayerStack:
         """Return the number of runs of identical consecutive layers."""
         return int(np.count_nonzero(np.diff(self._index, prepend=-1)))
 
-    def packed_runs(self) -> Iterator[tuple[int, int, np.ndarray]]:
-        """Yield (first, last inclusive, packed layer) for each run: the whole frame as np.packbits along x, (ny,
-        ceil(nx / 8)) uint8, a fresh array each time (bits past nx are 0). Nothing is unpacked: for work that
-        reads what changed from one run to the next."""
-        row_bytes = (self.shape[1] + 7) // 8
+    def packed_run_boxes(self) -> Iterator[tuple[int, int, tuple[int, int], np.ndarray]]:
+        """Yield (first, last inclusive, (row0, byte0), packed box) for each run: the run's solid box as stored,
+        np.packbits along x, (rows, bytes) uint8, at that row and byte of the frame (outside it the layer is
+        empty; bits past nx are 0). Nothing is unpacked: for work that reads what changed from one run to the next."""
         for first, last, d in self._spans():
-            (r0, b0), box = self._packed_box(d)
-            frame = np.zeros((self.shape[0], row_bytes), dtype=np.uint8)
-            frame[r0:r0 + box.shape[0], b0:b0 + box.shape[1]] = box
-            yield first, last, frame
+            at, box = self._packed_box(d)
+            yield first, last, at, box
 
     def run_box_px(self) -> np.ndarray:
         """Return the pixel area of each run's solid box, in run order (read from the stored boxes: nothing is

@@ -73,17 +73,23 @@ def cell_sparams(stack, grid: CellGrid, rf: RFValues, *, variants: Sequence[Vari
     # A lattice grid cascades its cells' own fills (for the single-pass path under the march) and then the
     # four sites each cell overlaps, whose S-parameters it averages by share (``cells.site_reads``).
     blocks = 5 if grid.lattice is not None else 1
-    cascades = {v.name: _CellCascade(blocks * grid.shape[0] * grid.shape[1], k0, index) for v in variants}
+    # One cascade holds every variant's cells side by side (a variant's block of columns each), so a run costs
+    # the same few array operations however many variants there are.
+    per_variant = blocks * grid.shape[0] * grid.shape[1]
+    cascade = _CellCascade(len(variants) * per_variant, k0, index)
+    z_scale = np.repeat([v.z_scale for v in variants], per_variant)
     marches = _marches(stack, beam, variants, k0[:, 0], eps[:, 0], index) if beam is not None else {}
     fine_cell = grid.cell_mm / (beam.sub if beam is not None else 1)
     surface = np.zeros(grid.shape)
     for run in cell_runs(stack, grid, with_edges=grows, sub=beam.sub if beam is not None else 1):
         surface[run.fill > 0] = (run.last + 1) * stack.layer_height_mm
+        fills = []
         for v in variants:
-            fill = _grown(run.fill, run.edge_mm, v, grid.cell_mm).ravel()
+            fills.append(_grown(run.fill, run.edge_mm, v, grid.cell_mm).ravel())
             if run.site_fill is not None:
-                fill = np.concatenate([fill, _grown(run.site_fill, run.site_edge_mm, v, grid.cell_mm).ravel()])
-            cascades[v.name].add(fill, run.thickness_mm * v.z_scale)
+                fills.append(_grown(run.site_fill, run.site_edge_mm, v, grid.cell_mm).ravel())
+        cascade.add(np.concatenate(fills), run.thickness_mm * z_scale)
+        for v in variants:
             if v.name in marches:
                 fine = run.fill if run.fine_fill is None else run.fine_fill
                 edge = run.edge_mm if run.fine_edge_mm is None else run.fine_edge_mm
@@ -93,11 +99,11 @@ def cell_sparams(stack, grid: CellGrid, rf: RFValues, *, variants: Sequence[Vari
             progress((run.last + 1) / stack.count)
     top = stack.count * stack.layer_height_mm
     out = {}
-    for v in variants:
-        cascade = cascades[v.name]
-        a, b, c, d = (m.reshape((-1, blocks, *grid.shape)) for m in cascade.finish())
-        s11, s21, s22 = s_parameters(a, b, c, d)
-        path = cascade.path.reshape((-1, blocks, *grid.shape))[:, 0]
+    matrices = [m.reshape((-1, len(variants), blocks, *grid.shape)) for m in cascade.finish()]
+    paths = cascade.path.reshape((-1, len(variants), blocks, *grid.shape))[:, :, 0]
+    for i, v in enumerate(variants):
+        s11, s21, s22 = s_parameters(*(m[:, i] for m in matrices))
+        path = paths[:, i]
         if blocks == 1:
             s11, s21, s22 = s11[:, 0], s21[:, 0], s22[:, 0]
         else:
@@ -163,7 +169,7 @@ class _CellCascade:
         self.path = np.zeros((len(k0), cells), dtype=complex)  # sum of n d along each cell: its single straight pass
         self.k0, self.index = k0, index
 
-    def add(self, fill: np.ndarray, thickness_mm: float) -> None:
+    def add(self, fill: np.ndarray, thickness_mm: np.ndarray) -> None:
         changed = fill != self.fill
         self._flush(np.flatnonzero(changed & (self.depth_mm > 0)))
         self.fill[changed] = fill[changed]
