@@ -129,10 +129,10 @@ def narrow_void(view: RunView, n_px: int, hole_px2: float | None):
     rows, cols = raster.coords(void & ~opened)
     keep = ~_next_to(opened, rows, cols)  # one pixel of staircase tolerance
     if hole_px2 is not None and rows.size and view.enclosed.any():
-        count, labels, outside = view.void
+        count, labels, outside = view.void  # labels on the window, as rows and cols are
         small = ~outside & (view.void_area < hole_px2)
         small[0] = False
-        keep &= ~small[labels[rows + rs.start, cols + cs.start]]  # holes min_hole judges by their diameter
+        keep &= ~small[labels[rows, cols]]  # holes min_hole judges by their diameter
     rows, cols = rows[keep], cols[keep]
     if rows.size == 0:
         return rows, cols, np.zeros(0), np.zeros(0)

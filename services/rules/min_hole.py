@@ -92,7 +92,7 @@ class Collector(RuleCollector):
         layer = frame.layer(k)
         view = RunView(frame, -1, k, k, layer, None, None)
         small, _ = small_holes(view, self.along_mm / self.px)
-        highlight = small[view.void[1]]
+        highlight = small[view.void_labels_over(slice(None), slice(None))]
         listed = group_instances(frame, inst, deep)
         return self._finding(frame, "along_z", message, diameter, self.along_mm, flat, k, highlight, count,
                              (int(inst["first"][i]), int(inst["last"][i])), listed)
