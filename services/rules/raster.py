@@ -254,6 +254,37 @@ def label(mask: np.ndarray, connectivity: int = 8, *, compact: bool = False) -> 
     return int(count), labels
 
 
+def label_with_areas(mask: np.ndarray, connectivity: int = 8) -> tuple[int, np.ndarray, np.ndarray, np.ndarray]:
+    """Return (count, labels, pixel count of each label, first row of each label) in one pass: labels as
+    ``label(compact=True)`` gives them (uint16 where they fit), counts int64, rows int64.
+
+    OpenCV counts while it labels (21 against 14 ms for the labels alone of a 2,400^2 layer; a bincount of the
+    labels afterwards took 31 ms); it writes 32-bit labels then, which are narrowed to 16 bits when they fit."""
+    algorithm = cv2.CCL_BOLELLI if connectivity == 8 else cv2.CCL_SAUF
+    count, labels, stats, _ = cv2.connectedComponentsWithStatsWithAlgorithm(mask.view(np.uint8), connectivity,
+                                                                            cv2.CV_32S, algorithm)
+    if count <= np.iinfo(np.uint16).max + 1:
+        labels = labels.astype(np.uint16)
+    return (int(count), labels, stats[:, cv2.CC_STAT_AREA].astype(np.int64),
+            stats[:, cv2.CC_STAT_TOP].astype(np.int64))
+
+
+def first_in_rows(labels: np.ndarray, wanted: np.ndarray, rows: np.ndarray) -> np.ndarray:
+    """Return the flat index of the first pixel (row-major) of each wanted label, given the first row each lies in
+    (``label_with_areas``): the first column holding it in that row. A block of labels at a time, so a plate of
+    thousands of holes holds a few MB of comparisons at once."""
+    out = np.empty(len(wanted), np.int64)
+    width = labels.shape[1]
+    for start in range(0, len(wanted), FIRST_IN_ROWS_BLOCK):
+        part = slice(start, start + FIRST_IN_ROWS_BLOCK)
+        cols = np.argmax(labels[rows[part]] == np.asarray(wanted[part], labels.dtype)[:, None], axis=1)
+        out[part] = rows[part] * width + cols
+    return out
+
+
+FIRST_IN_ROWS_BLOCK = 256
+
+
 def first_pixel(labels: np.ndarray, wanted: np.ndarray) -> np.ndarray:
     """Return the flat index of the first pixel (row-major) of each wanted label; -1 for a label not present."""
     pick = np.zeros(int(labels.max()) + 1, bool)

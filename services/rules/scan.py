@@ -133,6 +133,7 @@ class Frame:
         self.px = stack.pixel_mm
         self.dz = stack.layer_height_mm
         self.reach = self.pad  # a run's window reaches this far past its material (see RunView.window)
+        self.pockets_below = False  # whether the last run whose void was labelled held enclosed pockets
         self.bounded: Bounded | None = None  # roofed voids, when a family asks for them
 
     def pad_mask(self, mask: np.ndarray) -> np.ndarray:
@@ -247,7 +248,9 @@ class RunView:
         return self.last - self.first + 1
 
     # What the next run reads of this one (links, new material, pockets): kept once the families are done here.
-    KEPT_FOR_NEXT = ("window", "solid_in_window", "void", "enclosed", "void_area", "enclosed_index", "enclosed_labels")
+    # The void's labelling holds the same labels as ``void``: keeping it costs its counts alone.
+    KEPT_FOR_NEXT = ("window", "solid_in_window", "_void_in_window", "void", "enclosed", "void_area", "enclosed_index",
+                     "enclosed_labels")
 
     def forget(self) -> None:
         """Drop the link to the run before (its rasters are freed once nothing else holds them)."""
@@ -257,8 +260,6 @@ class RunView:
         """Drop every raster made for this run that the next run does not read (distance maps, widths, framed
         copies, links to the run before): on a wide part each is a frame-sized array held one run longer."""
         for name in [n for n in self.__dict__ if n not in self._plain and n not in self.KEPT_FOR_NEXT]:
-            if name == "_void_in_window" and not {"void", "enclosed"} <= self.__dict__.keys():
-                continue  # still the source of what the next run reads
             del self.__dict__[name]
 
     @cached_property
@@ -376,8 +377,19 @@ class RunView:
         return self.mask & ~self.prev.mask if self.prev is not None else self.mask.copy()
 
     @cached_property
-    def _void_in_window(self) -> tuple[int, np.ndarray]:
-        return raster.label(~self.mask[self.window], 4, compact=True)
+    def _void_in_window(self) -> tuple[int, np.ndarray, np.ndarray | None, np.ndarray | None]:
+        """Return (count, labels, pixels, first row) of the void on the window, 4-connected (``void`` says more).
+
+        The pixels and first rows of every label come with the labelling where the run below held enclosed
+        pockets (counting while labelling is 7-13 ms a 2,400^2 layer dearer, cheaper than counting the pockets
+        afterwards; runs follow each other's kind); else they are None and counted from the pockets if asked.
+        """
+        if self.frame.pockets_below:
+            found = raster.label_with_areas(~self.mask[self.window], 4)
+        else:
+            found = (*raster.label(~self.mask[self.window], 4, compact=True), None, None)
+        self.frame.pockets_below = found[0] > 2
+        return found
 
     @cached_property
     def void(self) -> tuple[int, np.ndarray, np.ndarray]:
@@ -388,7 +400,7 @@ class RunView:
         open air (``void_label_at`` and ``void_labels_over`` read the labels by frame pixel). A frame-sized
         copy per run cost the 2M lens 1.1 s of CPU.
         """
-        count, labels = self._void_in_window
+        count, labels, *_ = self._void_in_window
         outside = np.zeros(count, bool)
         outside[labels[0, 0]] = True
         return count, labels, outside
@@ -418,7 +430,7 @@ class RunView:
     @cached_property
     def enclosed(self) -> np.ndarray:
         """Return the void pixels enclosed by solid in this layer (holes, cavities, grooves)."""
-        count, labels = self._void_in_window
+        count, labels, *_ = self._void_in_window
         if count <= 2:
             return np.zeros_like(self.mask)
         return self._framed((labels != labels[0, 0]) & ~self.mask[self.window])
@@ -441,8 +453,23 @@ class RunView:
 
     @cached_property
     def void_area(self) -> np.ndarray:
-        """Return the pixel count of each enclosed void label (0 for the open air)."""
-        return np.bincount(self.enclosed_labels, minlength=self.void[0])
+        """Return the pixel count of each enclosed void label (0 for the open air), as the labelling counted them."""
+        count, labels, pixels, _ = self._void_in_window
+        if pixels is None:
+            return np.bincount(self.enclosed_labels, minlength=count)
+        area = pixels.copy()
+        area[0] = 0  # the solid
+        area[labels[0, 0]] = 0
+        return area
+
+    def void_first_pixel(self, wanted: np.ndarray) -> np.ndarray:
+        """Return the frame flat index of the first pixel (row-major) of each wanted enclosed void label."""
+        count, labels, _, first_row = self._void_in_window
+        if first_row is None:
+            first = np.zeros(count, np.int64)
+            first[self.enclosed_labels[::-1]] = self.enclosed_index[::-1]  # reversed: the first pixel written last
+            return first[wanted]
+        return self.frame_flat(raster.first_in_rows(labels, wanted, first_row[wanted]), labels.shape[1])
 
     @cached_property
     def void_links(self) -> np.ndarray:

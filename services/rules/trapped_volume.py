@@ -79,13 +79,10 @@ class Collector(RuleCollector):
         self._prev = lut
 
     def _add(self, view: RunView, pockets: np.ndarray) -> np.ndarray:
-        count, labels, _ = view.void
-        idx = view.enclosed_index
-        at = np.zeros(count, np.int64)
-        at[view.enclosed_labels[::-1]] = idx[::-1]
         n = pockets.size
         ids = np.arange(self.size, self.size + n)
-        self.nodes.append((view.void_area[pockets], at[pockets], np.full(n, view.first), np.full(n, view.last)))
+        self.nodes.append((view.void_area[pockets], view.void_first_pixel(pockets), np.full(n, view.first),
+                           np.full(n, view.last)))
         self.size += n
         self.parent.extend(ids.tolist())
         self.open.extend([False] * n)

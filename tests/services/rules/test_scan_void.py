@@ -58,3 +58,35 @@ def test_the_enclosed_pixels_labels_follow_the_enclosed_index(index):
     assert view.enclosed_index.size > 0
     np.testing.assert_array_equal(view.enclosed_labels, view.void_label_at(view.enclosed_index))
     assert not view.void[2][view.enclosed_labels].any()  # none of them open air
+
+
+def test_pockets_counted_while_labelling_or_afterwards_are_the_same():
+    """A run's pockets' pixel counts and first pixels are the same whether OpenCV counted them while labelling
+    (after a run with pockets) or they were counted from the pockets' pixels afterwards; both against a plain
+    count of scipy's labelling."""
+    found = {}
+    for counted_while_labelling in (False, True):
+        for view in _views():
+            view.frame.pockets_below = counted_while_labelling
+            count, labels, outside = view.void
+            assert (view._void_in_window[2] is not None) == counted_while_labelling
+            pockets = np.flatnonzero(~outside)[1:]
+            found.setdefault(view.index, []).append((view.void_area.copy(), view.void_first_pixel(pockets)))
+            plain, _ = _frame_labels(view)
+            first_of = {int(plain.flat[f]): f for f in view.void_first_pixel(pockets)}
+            for lab, f in first_of.items():  # scipy's first pixel of that pocket, row-major
+                assert np.flatnonzero(plain.ravel() == lab)[0] == f
+            np.testing.assert_array_equal(np.sort(view.void_area[pockets]),
+                                          np.sort([np.count_nonzero(plain == lab) for lab in first_of]))
+    for (area_a, first_a), (area_b, first_b) in found.values():
+        np.testing.assert_array_equal(area_a, area_b)
+        np.testing.assert_array_equal(first_a, first_b)
+
+
+def test_a_run_labels_its_void_with_counts_only_after_a_run_with_pockets():
+    """Counting while labelling costs more on a run without pockets: it is done after a run that had some."""
+    low, high = _views()
+    frame = low.frame
+    frame.pockets_below = False
+    assert low._void_in_window[2] is None and frame.pockets_below  # the ring round a hole has a pocket
+    assert high._void_in_window[2] is not None
