@@ -128,7 +128,7 @@ def narrow_void(view: RunView, n_px: int, hole_px2: float | None):
     opened = raster.open_disk(void, n_px, outside=True)
     rows, cols = raster.coords(void & ~opened)
     keep = ~_next_to(opened, rows, cols)  # one pixel of staircase tolerance
-    if hole_px2 is not None and rows.size and view.enclosed.any():
+    if hole_px2 is not None and rows.size and view.has_pockets:
         count, labels, outside = view.void  # labels on the window, as rows and cols are
         small = ~outside & (view.void_area < hole_px2)
         small[0] = False

@@ -51,7 +51,7 @@ class Collector(RuleCollector):
         return True
 
     def visit(self, view: RunView) -> None:
-        if self.along_mm is None or not view.enclosed.any():
+        if self.along_mm is None or not view.has_pockets:
             self._prev = None
             return
         small, diameter = small_holes(view, self.along_mm / self.px)

@@ -309,8 +309,14 @@ class RunView:
 
     @cached_property
     def filled(self) -> np.ndarray:
-        """Return the material with the void it encloses in this layer."""
-        return self.mask | self.enclosed
+        """Return the material with the void it encloses in this layer (the mask itself where it encloses none:
+        read only, as every use of it is)."""
+        return self.mask | self.enclosed if self.has_pockets else self.mask
+
+    @property
+    def has_pockets(self) -> bool:
+        """Return whether the layer encloses any void (a label besides the solid's and the open air's)."""
+        return self._void_in_window[0] > 2
 
     @cached_property
     def _dist_in_window(self) -> np.ndarray:
@@ -431,7 +437,7 @@ class RunView:
     def enclosed(self) -> np.ndarray:
         """Return the void pixels enclosed by solid in this layer (holes, cavities, grooves)."""
         count, labels, *_ = self._void_in_window
-        if count <= 2:
+        if not self.has_pockets:
             return np.zeros_like(self.mask)
         return self._framed((labels != labels[0, 0]) & ~self.mask[self.window])
 
