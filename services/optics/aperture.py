@@ -12,7 +12,6 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.ndimage import binary_erosion, binary_fill_holes
 
 from services.rules import raster
 
@@ -48,7 +47,7 @@ class ClearAperture:
 def clear_aperture(stack, *, axis_mm: tuple[float, float], given_mm: float | None = None,
                    parameters: dict | None = None) -> ClearAperture:
     """Return the clear aperture: given, else the generator's, else detected, else the outline."""
-    outline = binary_fill_holes(stack.footprint)
+    outline = raster.holes_filled(stack.footprint)
     if not outline.any():
         return _aperture(stack, outline, "outline", "The part has no footprint.", axis_mm)
     x, y = stack.x_centres_mm[None, :] - axis_mm[0], stack.y_centres_mm[:, None] - axis_mm[1]
@@ -98,7 +97,7 @@ def _declared_diameter_mm(parameters: dict | None, stack, outline: np.ndarray) -
 
 def _varying(stack, outline: np.ndarray) -> np.ndarray:
     """Return the pixels whose thickness differs by a layer or more from the outer rim's (its median)."""
-    edge = outline & ~binary_erosion(outline)
+    edge = raster.inner_edge(outline)
     rim = float(np.median(stack.thickness_mm[edge]))
     thickness, step = stack.thickness_mm, 0.5 * stack.layer_height_mm
     return outline & _by_rows(outline.shape, lambda rows: np.abs(thickness[rows] - rim) > step)

@@ -89,3 +89,19 @@ def test_void_index_maps_opencv_pixel_numbers_band_by_band():
     dist = ndimage.distance_transform_edt(mask)[mask]
     found = np.hypot(rows - np.nonzero(mask)[0], cols - np.nonzero(mask)[1])
     assert np.abs(found - dist).max() < 0.1  # ...and the nearest (scipy's exact distance; OpenCV's 5x5 mask is near)
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_holes_filled_and_the_inner_edge_are_scipys(seed):
+    """Holes filled and the inner edge give scipy.ndimage's binary_fill_holes and mask & ~binary_erosion (default
+    cross structure, outside the array void) pixel for pixel: random blobs, rings round holes, holes open to the
+    border, diagonal gaps (closed to 4-connected void), an empty and a full mask."""
+    rng = np.random.default_rng(seed)
+    yy, xx = np.mgrid[:67, :91]
+    mask = ndimage.binary_opening(rng.random((67, 91)) < 0.55)
+    mask |= (np.hypot(yy - 30, xx - 40) < 20) & ~(np.hypot(yy - 30, xx - 40) < 5 + seed)
+    mask[:, :3] = seed % 2 == 0  # a band along the border, solid or void
+    mask[10:14, 70:74] = np.eye(4, dtype=bool) | np.eye(4, dtype=bool)[::-1]  # a diagonal cross
+    for m in (mask, np.zeros_like(mask), np.ones_like(mask), ~mask):
+        np.testing.assert_array_equal(raster.holes_filled(m), ndimage.binary_fill_holes(m))
+        np.testing.assert_array_equal(raster.inner_edge(m), m & ~ndimage.binary_erosion(m))
