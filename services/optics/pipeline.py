@@ -137,7 +137,9 @@ def _run(plan: Plan, part: Part, printed: LayerStack, printer: PrinterProfile, r
     z_ref = float(part.bounds_mm[1][2])
     models = {name: _evaluate(sp, illum, rf, settings, z_ref, grid.axis_index, plate, name == "nominal")
               for name, sp in sp_p.items()}
-    design = _evaluate(sp_d, illum, rf, settings, z_ref, grid.axis_index, plate, True)
+    # The print serving as the design is the same model: its focus is not searched for twice.
+    design = models["nominal"] if sp_d is sp_p["nominal"] else _evaluate(sp_d, illum, rf, settings, z_ref,
+                                                                          grid.axis_index, plate, True)
     return _Pass(plan, illum, models, design, checks.phase_error(sp_p["nominal"].s21, sp_d.s21, illum.weights))
 
 
