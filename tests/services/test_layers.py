@@ -651,3 +651,14 @@ def test_a_forked_child_slices_with_helper_threads_of_its_own(make_part):
         child.join(timeout=10)
         if child.is_alive():
             child.kill()
+
+
+@pytest.mark.parametrize("size", [0, 1, 7, 8, 9, 63, 1000, 4097])
+@pytest.mark.parametrize("density", [0.0, 0.01, 0.5, 1.0])
+def test_the_non_zero_bytes_are_numpys_flatnonzero(size, density):
+    """The non-zero bytes found word by word are np.flatnonzero's, in its order: sizes not a whole number of 8-byte
+    words (the tail read byte by byte), empty, sparse and full arrays, one byte of a word set or all eight."""
+    rng = np.random.default_rng(size * 7 + int(density * 100))
+    a = ((rng.random(size) < density) * rng.integers(1, 256, size)).astype(np.uint8)
+    np.testing.assert_array_equal(layers.nonzero_bytes(a), np.flatnonzero(a))
+    np.testing.assert_array_equal(layers.nonzero_bytes(a.reshape(1, -1)), np.flatnonzero(a))
