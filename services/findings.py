@@ -10,7 +10,7 @@ SEVERITIES = ("blocker", "caution", "note")
 
 RULES = (
     "mesh_health", "units", "build_fit", "min_feature", "min_gap", "min_hole", "aspect_ratio",
-    "overhang", "island", "trapped_volume", "period", "phase_error", "rf_table", "not_computed",
+    "overhang", "island", "trapped_volume", "period", "phase_error", "focus", "rf_table", "not_computed",
     "requirement",
 )
 
@@ -92,6 +92,7 @@ RULE_LABELS = {
     "mesh_health": "Mesh health", "units": "Units", "build_fit": "Build volume", "min_feature": "Minimum feature",
     "min_gap": "Minimum gap", "min_hole": "Minimum hole", "aspect_ratio": "Slenderness", "overhang": "Overhang",
     "island": "Island", "trapped_volume": "Trapped resin", "period": "Lattice period", "phase_error": "Phase error",
+    "focus": "Focus",
     "rf_table": "RF data range", "not_computed": "Not computed",
     "requirement": "Requirement",
 }

@@ -129,7 +129,22 @@ def _series_for(name: str, req: Requirements, optics: dict | None) -> tuple[_Ser
     series = _Series(np.array(designed[key], float), np.array(printed[key], float),
                      {v: np.array(vals[key], float) for v, vals in variants.items() if key in vals},
                      np.array(optics["frequencies_ghz"], float))
-    return _in_band(series, req, name)
+    cut, why = _in_band(series, req, name)
+    if name == "min_strehl" and cut is not None:
+        above = _strehl_above(cut)
+        if above is not None:
+            return None, (f"the Strehl ratio reads up to {above:.2f} over the design, the print and its tolerance "
+                          "band, above 1: the on-axis peak lies short of where the wavefront converges, so the ratio "
+                          "measures nothing to judge against (see the focus note)")
+    return cut, why
+
+
+def _strehl_above(s: _Series) -> float | None:
+    """Return the largest Strehl ratio of the band past what a converging wave reads (``checks``), else None."""
+    from services.optics.checks import STREHL_READS_NOTHING_ABOVE
+
+    values = np.concatenate([s.designed, s.printed, *s.variants.values()])
+    return float(values.max()) if (values > STREHL_READS_NOTHING_ABOVE).any() else None
 
 
 def _in_band(series: _Series, req: Requirements, name: str) -> tuple[_Series | None, str | None]:

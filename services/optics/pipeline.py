@@ -111,7 +111,7 @@ def optics_report(*, part: Part, printed: LayerStack, material: Material, printe
     models = {name: _merged([p.models[name] for p in passes], order) for name in passes[0].models}
     design_model = _merged([p.design for p in passes], order)
     err = checks.PhaseError(*(np.concatenate([getattr(p.err, f) for p in passes])[order] for f in ("rms_rad", "strehl")))
-    findings = _findings(err, rf, period, settings)
+    findings = _findings(err, rf, period, settings, models["nominal"].focus)
     section = _section(rf, freq_note, models, design_model, passes, err, printer, settings, plate)
     section["analysis"]["lattice_period_mm"] = None if period is None else {"value": period[0], "how": period[1]}
     section["analysis"]["cell_model"] = {**cells.to_dict(), "why": cells_why}
@@ -217,8 +217,12 @@ def _weighted_s(model: _Model):
 
 
 def _findings(err: checks.PhaseError, rf: RFValues, period: tuple[float, str] | None,
-              settings: OpticsSettings) -> list[Finding]:
+              settings: OpticsSettings, focus: list | None) -> list[Finding]:
     found = [checks.phase_error_finding(err, rf.freqs_ghz, settings.phase_error_blocker_strehl)]
+    if focus is not None:
+        found.append(checks.strehl_above_one_finding(rf.freqs_ghz, np.array([m.strehl for m in focus]),
+                                                     np.array([m.best_focus_mm for m in focus]),
+                                                     np.array([m.wavefront_focus_mm for m in focus])))
     if period is not None:
         i = int(np.argmax(rf.freqs_ghz))
         # Normal incidence: the Gaussian beam has its waist (a flat phase front) on the input face.

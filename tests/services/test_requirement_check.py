@@ -132,3 +132,16 @@ def test_optics_not_computed_leave_optical_targets_unevaluated_with_the_reason()
                              optics={"not_computed": "No clear aperture.", "frequency_note": None})
     (outcome,) = out.outcomes
     assert outcome.status == "not_evaluated" and "No clear aperture" in outcome.why and out.meets == "no"
+
+
+def test_a_strehl_ratio_well_above_one_is_not_judged():
+    """A Strehl ratio above 1.05 anywhere in the band (as designed, as printed or in the tolerance band) compares
+    peaks at different distances (services.optics.checks): the target is not evaluated, and says why; at 1.05 it is
+    judged."""
+    out = check_requirements(Requirements(min_strehl=0.8), bbox_mm=BBOX,
+                             optics=_optics(designed=[1.41], printed=[1.38], stretched=[1.2]))
+    (outcome,) = out.outcomes
+    assert outcome.status == "not_evaluated" and "reads up to 1.41 over the design" in outcome.why
+    out = check_requirements(Requirements(min_strehl=0.8), bbox_mm=BBOX,
+                             optics=_optics(designed=[1.05], printed=[1.0], stretched=[0.99]))
+    assert out.outcomes[0].status == "met"
