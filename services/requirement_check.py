@@ -131,20 +131,29 @@ def _series_for(name: str, req: Requirements, optics: dict | None) -> tuple[_Ser
                      np.array(optics["frequencies_ghz"], float))
     cut, why = _in_band(series, req, name)
     if name == "min_strehl" and cut is not None:
-        above = _strehl_above(cut)
-        if above is not None:
-            return None, (f"the Strehl ratio reads up to {above:.2f} over the design, the print and its tolerance "
-                          "band, above 1: the on-axis peak lies short of where the wavefront converges, so the ratio "
-                          "measures nothing to judge against (see the focus note)")
+        read = _strehl_read_nothing(printed, designed, series.freqs_ghz, cut.freqs_ghz)
+        if read is not None:
+            return None, (f"the Strehl ratio reads {read:.2f}, above 1, with the on-axis peak well short of the "
+                          "ideal wave's: it compares two distances and measures nothing to judge against (see the "
+                          "focus note)")
     return cut, why
 
 
-def _strehl_above(s: _Series) -> float | None:
-    """Return the largest Strehl ratio of the band past what a converging wave reads (``checks``), else None."""
-    from services.optics.checks import STREHL_READS_NOTHING_ABOVE
+def _strehl_read_nothing(printed: dict, designed: dict, freqs_ghz: np.ndarray, band_ghz: np.ndarray) -> float | None:
+    """Return the largest Strehl ratio in the band, as printed or as designed, that measures nothing
+    (``checks.strehl_reads_nothing``), else None."""
+    from services.optics.checks import strehl_reads_nothing
 
-    values = np.concatenate([s.designed, s.printed, *s.variants.values()])
-    return float(values.max()) if (values > STREHL_READS_NOTHING_ABOVE).any() else None
+    in_band = np.isin(freqs_ghz, band_ghz)
+    worst = None
+    for focus in (printed, designed):
+        if "ideal_peak_mm" not in focus:
+            continue
+        strehl = np.array(focus["strehl"], float)
+        hit = strehl_reads_nothing(strehl, focus["best_focus_mm"], focus["ideal_peak_mm"]) & in_band
+        if hit.any():
+            worst = max(worst or 0.0, float(strehl[hit].max()))
+    return worst
 
 
 def _in_band(series: _Series, req: Requirements, name: str) -> tuple[_Series | None, str | None]:

@@ -83,6 +83,7 @@ class FocusMetrics:
     spot: Spot
     ideal: Spot
     design_plane_fwhm_mm: tuple[float, float] | None = None
+    ideal_peak_mm: float | None = None  # where the ideal reference wave's on-axis peak lies (Strehl's denominator)
 
 
 def focus_metrics(field: np.ndarray, illum: Illumination, *, wavelength_mm: float, intended_mm: float,
@@ -125,7 +126,7 @@ def focus_metrics(field: np.ndarray, illum: Illumination, *, wavelength_mm: floa
         fwhm_mm=spot.fwhm_mm, diffraction_limited_fwhm_mm=ideal.fwhm_mm,
         strehl=spot.peak_intensity / ideal.peak_intensity, focusing_efficiency=inside / illum.aperture_power,
         scan_mm=scan_d + exit_offset_mm, scan_intensity=scan_i, spot=spot, ideal=ideal,
-        design_plane_fwhm_mm=design_plane.fwhm_mm,
+        design_plane_fwhm_mm=design_plane.fwhm_mm, ideal_peak_mm=ideal.distance_mm - depth + exit_offset_mm,
     )
 
 
@@ -165,5 +166,6 @@ def focus_dict(intended_mm: float, metrics: list[FocusMetrics]) -> dict:
         "design_plane_fwhm_mm": [[round(v, 4) for v in m.design_plane_fwhm_mm] for m in metrics],
         "design_plane_fwhm_ratio": _r([design_plane_ratio(m) for m in metrics]),
         "strehl": _r([m.strehl for m in metrics]),
+        "ideal_peak_mm": _r([m.ideal_peak_mm for m in metrics], 3),
         "focusing_efficiency": _r([m.focusing_efficiency for m in metrics]),
     }

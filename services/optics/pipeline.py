@@ -40,6 +40,9 @@ FOCUS_DEFINITIONS = {
               "aberration-free part, within 0.01 from Fresnel number 10 up)",
     "design_plane_fwhm_ratio": "the spot's FWHM in the plane at the intended focal length (where the detector sits), "
                                "over the diffraction-limited FWHM",
+    "ideal_peak_mm": "where the Strehl ratio's ideal wave peaks on the axis; an on-axis peak well short of it (a "
+                     "bright near field of a part that barely focuses) reads a Strehl ratio above 1 that compares two "
+                     "distances (the focus note)",
 }
 EFFICIENCY_DEFINITION = (f"power inside a circle of radius {EFFICIENCY_RADIUS_FWHM:g} x the diffraction-limited FWHM "
                          "around the focal-plane peak, over the illumination power incident on the clear aperture "
@@ -220,9 +223,9 @@ def _findings(err: checks.PhaseError, rf: RFValues, period: tuple[float, str] | 
               settings: OpticsSettings, focus: list | None) -> list[Finding]:
     found = [checks.phase_error_finding(err, rf.freqs_ghz, settings.phase_error_blocker_strehl)]
     if focus is not None:
-        found.append(checks.strehl_above_one_finding(rf.freqs_ghz, np.array([m.strehl for m in focus]),
-                                                     np.array([m.best_focus_mm for m in focus]),
-                                                     np.array([m.wavefront_focus_mm for m in focus])))
+        found.append(checks.strehl_above_one_finding(rf.freqs_ghz, *(np.array([getattr(m, key) for m in focus]) for key in
+                                                                     ("strehl", "best_focus_mm", "wavefront_focus_mm",
+                                                                      "ideal_peak_mm"))))
     if period is not None:
         i = int(np.argmax(rf.freqs_ghz))
         # Normal incidence: the Gaussian beam has its waist (a flat phase front) on the input face.

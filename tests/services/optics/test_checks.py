@@ -141,36 +141,40 @@ def test_the_report_cautions_a_diffracting_declared_period(lens):
     assert found.measured == 2.5 and found.limit == pytest.approx(1.7916, abs=1e-3)
 
 
-def test_a_strehl_ratio_well_above_one_is_read_as_no_focus():
-    """Above 1.05 (an aberration-free part reads 1 within 0.02 from Fresnel number 5 up) the note names every such
-    frequency and the worst one's distances; at 1.05 and below nothing is said."""
-    from services.optics.checks import STREHL_READS_NOTHING_ABOVE, strehl_above_one_finding
+def test_a_strehl_ratio_above_one_with_the_peak_short_of_the_ideal_wave_s_is_read_as_no_focus():
+    """The note names every frequency whose Strehl ratio reads above 1.02 with its on-axis peak short of 0.8 of the
+    ideal wave's, and the worst one's distances; above 1.02 with the peaks together (a fast lens), or a peak short of
+    the ideal's below 1.02 (an aberrated part), nothing is said."""
+    from services.optics.checks import strehl_above_one_finding
 
     freqs = np.array([95.0, 100.0, 105.0])
-    best, wavefront = np.array([7.0, 7.4, 8.1]), np.array([36.0, 36.6, 37.1])
-    assert strehl_above_one_finding(freqs, np.array([0.93, 1.0, STREHL_READS_NOTHING_ABOVE]), best, wavefront) is None
-    note = strehl_above_one_finding(freqs, np.array([1.2, 1.41, 1.02]), best, wavefront)
+    best, wavefront, ideal = np.array([7.0, 7.4, 8.1]), np.array([36.0, 36.6, 37.1]), np.array([18.0, 18.2, 18.4])
+    assert strehl_above_one_finding(freqs, np.array([0.93, 1.0, 1.02]), best, wavefront, ideal) is None
+    together = np.array([13.0, 13.05, 13.1])
+    assert strehl_above_one_finding(freqs, np.array([1.06, 1.06, 1.06]), together * 0.99, wavefront, together) is None
+    note = strehl_above_one_finding(freqs, np.array([1.2, 1.41, 1.01]), best, wavefront, ideal)
     assert (note.rule, note.severity, note.count, note.measured) == ("focus", "note", 2, 1.41)
     assert "95 GHz (1.20), 100 GHz (1.41)" in note.message and "105 GHz" not in note.message
-    (one,) = [strehl_above_one_finding(freqs[1:2], np.array([1.41]), best[1:2], wavefront[1:2])]
+    (one,) = [strehl_above_one_finding(freqs[1:2], np.array([1.41]), best[1:2], wavefront[1:2], ideal[1:2])]
     assert one.message.startswith("The Strehl ratio reads 1.41 at 100 GHz, above 1: the beam's on-axis peak lies 7.4 mm")
-    assert "7.4 mm from the part" in note.message and "(36.6 mm)" in note.message
+    assert "peaks (18.2 mm)" in one.message and "converges (36.6 mm)" in one.message
 
 
-def test_a_plate_that_barely_focuses_gets_the_note_and_a_lens_does_not():
+def test_a_plate_that_barely_focuses_gets_the_note_and_lenses_do_not():
     """A 20 mm graded-index plate for f = 30 mm at 100 GHz on the starter resin printer has most of its holes
     clipped to the printer's smallest: its on-axis peak lies a few millimetres from it and reads a Strehl ratio
-    near 1.4, which the note explains; the zoned lens of the same size and focus reads about 1 and gets none."""
+    near 1.4, which the note explains; the zoned lens of the same size and focus reads about 1, and a 30 mm
+    plano-convex lens at f = 15 mm reads a little above 1 with its peak where the ideal wave's is: no note."""
     from services import catalogue
     from services.components import build_component
     from services.layers import orient_part
 
     bay, resin = catalogue.printer("bay1-lcd-resin"), catalogue.material("standard-resin")
-    settings = OpticsSettings(freqs_ghz=(100.0,), focal_length_mm=30.0)
     notes = {}
-    for kind, extra in (("graded-index", {"lattice": "square"}), ("zoned", {})):
-        part = orient_part(build_component(kind, {"diameter_mm": 20.0, "focal_length_mm": 30.0, "freq_ghz": 100.0,
-                                                   **extra}, material=resin, printer=bay).part, "+z")
+    for kind, extra in (("graded-index", {"lattice": "square"}), ("zoned", {}), ("plano-convex", {"diameter_mm": 30.0})):
+        settings = OpticsSettings(freqs_ghz=(100.0,), focal_length_mm=15.0 if kind == "plano-convex" else 30.0)
+        part = orient_part(build_component(kind, {"diameter_mm": 20.0, "focal_length_mm": settings.focal_length_mm,
+                                                   "freq_ghz": 100.0, **extra}, material=resin, printer=bay).part, "+z")
         stack = build_layer_stack(part, pixel_mm=bay.pixel_mm, layer_height_mm=bay.layer_height_mm)
         result = optics_report(part=part, printed=stack, material=resin, printer=bay, settings=settings,
                                with_figures=False)
@@ -179,3 +183,6 @@ def test_a_plate_that_barely_focuses_gets_the_note_and_a_lens_does_not():
     assert plate_focus["strehl"][0] > 1.2 and plate_focus["best_focus_mm"][0] < 0.5 * plate_focus["wavefront_focus_mm"][0]
     assert plate_note.measured == pytest.approx(plate_focus["strehl"][0], abs=1e-4)
     assert notes["zoned"][0] == [] and notes["zoned"][1]["strehl"][0] == pytest.approx(1.0, abs=0.02)
+    # An f/0.5 lens reads a little above 1 (the scalar reference at a high aperture), its peak where the ideal's is.
+    fast = notes["plano-convex"][1]
+    assert notes["plano-convex"][0] == [] and fast["best_focus_mm"][0] == pytest.approx(fast["ideal_peak_mm"][0], rel=0.1)
