@@ -273,11 +273,10 @@ class _ChangeCounter:
     def _near(self, changed: np.ndarray) -> np.ndarray:
         """Return, ascending, the flat bytes whose transitions a change can move: the changed bytes, the bytes left
         of them and the bytes below them."""
-        spread = np.concatenate([changed, changed[changed >= 1] - 1, changed[changed >= self.row_bytes] - self.row_bytes])
-        if changed.size * SORT_NEAR_SHARE < self.below.size:  # few: sorting them beats a pass over the frame
-            return np.unique(spread)
         near = np.zeros(self.below.size, dtype=bool)
-        near[spread] = True
+        near[changed] = True
+        near[changed[changed >= 1] - 1] = True
+        near[changed[changed >= self.row_bytes] - self.row_bytes] = True
         return nonzero_bytes(near.view(np.uint8))
 
     def _transitions(self, flat: np.ndarray, at: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -321,8 +320,6 @@ class _ChangeCounter:
         into += np.bincount(np.concatenate(cells), weights=np.concatenate(pixels), minlength=self.cells).astype(np.int64)
 
 
-SORT_NEAR_SHARE = 256  # changed bytes under 1/256 of the frame's have their neighbours sorted, not marked in a frame
-# (at 1/16, the 2M lens's edges took 0.92 s against 0.64 s)
 ADD_BYTES = 1 << 20  # changed bytes counted at once: their int64 working copies 8 MB each, not the frame's. Bands
 # of 1 << 18 held the 2M lens's peak 60-100 MB higher (smaller blocks stay in the thread's malloc arena once freed)
 
@@ -488,20 +485,6 @@ def _site_runs(stack, grid: CellGrid, *, with_edges: bool) -> Iterator[CellRun]:
                       np.take_along_axis(sites, nearest, axis=0)[0],
                       np.take_along_axis(edges, nearest, axis=0)[0] if with_edges else np.zeros(0),
                       site_fill=sites, site_edge_mm=edges, site_weight=reads.weight)
-
-
-def cell_footprint(stack, grid: CellGrid) -> np.ndarray:
-    """Return the clear aperture: cells at least half covered by the part's footprint, holes filled.
-
-    Half coverage keeps the aperture's area equal to the footprint's, so rim cells neither add nor
-    lose illumination power on average.
-    """
-    from scipy.ndimage import binary_fill_holes
-
-    rows = _BlockSum(grid._bins(stack.y_centres_mm, grid.axis_mm[1], grid.shape[0]), grid.shape[0])
-    cols = _BlockSum(grid._bins(stack.x_centres_mm, grid.axis_mm[0], grid.shape[1]), grid.shape[1])
-    share = cols(rows(stack.footprint.view(np.uint8), 0), 1) * (stack.pixel_mm / grid.cell_mm) ** 2
-    return binary_fill_holes(share >= 0.5)
 
 
 def cell_coverage(mask: np.ndarray, stack, grid: CellGrid) -> np.ndarray:

@@ -178,18 +178,14 @@ def test_cells_read_from_each_runs_solid_box_count_as_the_whole_frame(sub):
     _assert_cells_count_every_pixel(stack, masks, grid, sub)
 
 
-@pytest.mark.parametrize("sub, band_bytes, sort_share", [(1, None, None), (2, None, None), (1, 7, None), (2, 7, None),
-                                                         (1, None, 1), (2, 7, 1)])
-def test_cells_counted_from_the_run_below_equal_a_fresh_count_of_every_run(sub, band_bytes, sort_share, monkeypatch):
+@pytest.mark.parametrize("sub, band_bytes", [(1, None), (2, None), (1, 7), (2, 7)])
+def test_cells_counted_from_the_run_below_equal_a_fresh_count_of_every_run(sub, band_bytes, monkeypatch):
     """Each run's fills and edges are counted from what changed since the run below (packed bytes); on layers that
     change a little at a time (a disc shrinking ring by ring, pixels flipped at random, a layer left empty) and a
     grid that leaves frame pixels out on two sides and reaches past the frame on the others, they equal a plain
-    count of every run's pixels; also when the changed bytes are counted a few at a time, and when the bytes near
-    a change are found by sorting them (``sort_share`` 1; these small frames otherwise mark them in a frame)."""
+    count of every run's pixels; also when the changed bytes are counted a few at a time."""
     if band_bytes is not None:
         monkeypatch.setattr(cell_counting, "ADD_BYTES", band_bytes)
-    if sort_share is not None:
-        monkeypatch.setattr(cell_counting, "SORT_NEAR_SHARE", sort_share)
     rng = np.random.default_rng(23)
     ny, nx = 47, 61  # not whole bytes across: the padding bits of every packed row are read too
     yy, xx = np.mgrid[:ny, :nx]
