@@ -470,12 +470,10 @@ class RunView:
 
     def void_first_pixel(self, wanted: np.ndarray) -> np.ndarray:
         """Return the frame flat index of the first pixel (row-major) of each wanted enclosed void label."""
-        count, labels, _, first_row = self._void_in_window
-        if first_row is None:
-            first = np.zeros(count, np.int64)
-            first[self.enclosed_labels[::-1]] = self.enclosed_index[::-1]  # reversed: the first pixel written last
-            return first[wanted]
-        return self.frame_flat(raster.first_in_rows(labels, wanted, first_row[wanted]), labels.shape[1])
+        _, labels, _, first_row = self._void_in_window
+        inner = raster.first_pixel(labels, wanted) if first_row is None else \
+            raster.first_in_rows(labels, wanted, first_row[wanted])
+        return self.frame_flat(inner, labels.shape[1])
 
     @cached_property
     def void_links(self) -> np.ndarray:
