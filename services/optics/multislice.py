@@ -245,8 +245,25 @@ class _SliceSum:
             depth = np.concatenate([np.full(len(p.index), m * layer_mm) for p, m in self.parts])
             n_eff = cell_index(fill)[0]
             delay = (n_eff - 1) * depth[None, :]
-            unique, where = np.unique(index, return_inverse=True)
-            total = np.array([np.bincount(where, d.real, len(unique)) + 1j * np.bincount(where, d.imag, len(unique))
-                              for d in delay])
+            unique, total = _summed_by_index(index, delay, self.solid.size)
             out[:, unique] *= np.exp(-1j * k0[:, None] * total).astype(np.complex64)
         return out.reshape(len(k0), *self.solid.shape)
+
+
+def _summed_by_index(index: np.ndarray, values: np.ndarray, size: int) -> tuple[np.ndarray, np.ndarray]:
+    """Return the distinct indices (ascending) below ``size`` and, per row of ``values`` (rows, k), the sum of the
+    values at each.
+
+    One part's indices are already distinct and ascending (a flatnonzero). Several parts' are summed by a count
+    over the whole index range where they are many (a sort of 120,000 indices took 9 ms, the count 5 ms), by a
+    sort where they are few against it.
+    """
+    if index.size and np.all(index[1:] > index[:-1]):
+        return index, values
+    if index.size * 8 < size:
+        unique, where = np.unique(index, return_inverse=True)
+        return unique, np.array([np.bincount(where, v.real, len(unique)) + 1j * np.bincount(where, v.imag, len(unique))
+                                 for v in values])
+    unique = np.flatnonzero(np.bincount(index, minlength=size))
+    return unique, np.array([np.bincount(index, v.real, size)[unique] + 1j * np.bincount(index, v.imag, size)[unique]
+                             for v in values])

@@ -203,3 +203,20 @@ def test_cells_counted_from_the_run_below_equal_a_fresh_count_of_every_run(sub, 
     assert rows.min() < 0 and cols.min() < 0  # frame pixels below and left of the grid are not counted
     assert rows.max() < fine.shape[0] - 1 and cols.max() < fine.shape[1] - 1  # the grid reaches past the frame
     _assert_cells_count_every_pixel(stack, masks, grid, sub)
+
+
+@pytest.mark.parametrize("parts, size", [(1, 5000), (3, 50000), (40, 5000)])
+def test_a_slices_partly_filled_sub_cells_are_summed_once_per_sub_cell(parts, size):
+    """The slice's screen sums the delays of a sub-cell that several runs leave partly filled: by a sort where the
+    indices are few, by a count over the range where they are many, as they are where one run holds them all;
+    against numpy's unbuffered np.add.at (a sum per index of a different kind)."""
+    from services.optics.multislice import _summed_by_index
+
+    rng = np.random.default_rng(parts)
+    index = np.concatenate([np.sort(rng.choice(size, 300, replace=False)) for _ in range(parts)])
+    values = rng.normal(size=(2, index.size)) + 1j * rng.normal(size=(2, index.size))
+    unique, total = _summed_by_index(index, values, size)
+    expected = np.zeros((2, size), dtype=complex)
+    np.add.at(expected, (slice(None), index), values)
+    assert np.array_equal(unique, np.unique(index))
+    np.testing.assert_allclose(total, expected[:, unique], rtol=1e-12, atol=1e-12)
