@@ -1,7 +1,7 @@
 """Forms of the designer's pages: they parse and explain, the services decide."""
 
 import re
-from dataclasses import replace
+from dataclasses import fields, replace
 
 from django import forms
 
@@ -72,7 +72,9 @@ def requirement_fields() -> dict[str, forms.Field]:
 
 def stated_requirements(data: dict) -> dict:
     """Return the targets the form states, as Requirements.from_dict takes them; ValueError for a bad band."""
-    out = {name: data.get(REQUIREMENT_PREFIX + name) for name in LABELS if name != "band_ghz"}
+    # Every target the Requirements hold, read from its form field (the band and the loss basis are read below).
+    out = {f.name: data.get(REQUIREMENT_PREFIX + f.name) for f in fields(Requirements)
+           if f.name not in ("band_ghz", "loss_basis", "source")}
     out = {k: v for k, v in out.items() if v is not None}
     band = (data.get(REQUIREMENT_PREFIX + "band") or "").strip()
     if band:

@@ -9,6 +9,7 @@ from django.core.files.uploadedfile import SimpleUploadedFile
 from django.urls import reverse
 
 from tests.webapp.parts import box_stl, finned_plate_stl
+from webapp.checks.forms import UploadForm
 from webapp.checks.models import Check, Design
 
 OPTIONS = {"printer": "bay1-lcd-resin", "material": "standard-resin", "orientation": "+z", "quantities": "1, 5"}
@@ -139,6 +140,23 @@ def test_requirements_from_the_upload_form_reach_the_check(alice_client, seeded)
     response, _ = _post(alice_client, reverse("upload"), bad)
     error = re.search(r'<p class="error" id="id_req_min_strehl_error">([^<]*)</p>', response.content.decode())
     assert response.status_code == 400 and error and "fraction between 0 and 1" in error.group(1)
+
+
+def test_every_requirement_field_of_the_form_reaches_the_check(alice_client, seeded):
+    """Each target the form offers is stored as typed: a focal length with its tolerance was refused as having none
+    (the tolerance's field was never read), so no focal-length target could be set in the browser."""
+    typed = {"max_insertion_loss_db": "2", "max_spot_fwhm_ratio": "1.3", "min_focusing_efficiency": "0.4",
+             "min_strehl": "0.7", "focal_length_mm": "72", "focal_tolerance_mm": "3", "max_thickness_mm": "9",
+             "max_diameter_mm": "70", "f_number_min": "0.8", "f_number_max": "2", "min_mode_purity": "0.6"}
+    offered = {name.removeprefix("req_") for name in UploadForm().fields if name.startswith("req_")}
+    assert offered == set(typed) | {"band", "loss_basis"}
+    data = {"file": SimpleUploadedFile("a.stl", box_stl()), "units": "mm", **OPTIONS, "req_band": "130:150",
+            "req_loss_basis": "band_average", **{f"req_{name}": value for name, value in typed.items()}}
+    response, _ = _post(alice_client, reverse("upload"), data)
+    assert response.status_code == 302, response.content.decode()[:3000]
+    stated = Check.objects.get().settings["requirements"]
+    assert {name: stated[name] for name in typed} == {name: float(value) for name, value in typed.items()}
+    assert stated["loss_basis"] == "band_average" and stated["band_ghz"] == [130.0, 150.0]
 
 
 def test_a_generated_lens_can_start_from_the_demo_labs_targets(alice_client, seeded):
