@@ -22,8 +22,8 @@ from fpdf.enums import XPos, YPos
 from PIL import Image
 
 from services.numbers_text import significant
-from services.render.tables import (VERDICT_LABELS, location_text, meets_label, measured_text, optics_rows,
-                                    quote_label, requirement_rows, rule_label, severity_counts)
+from services.render.tables import (VERDICT_LABELS, finding_badge, location_text, meets_label, measured_text,
+                                    optics_rows, quote_label, requirement_rows, rule_label, severity_counts)
 
 INK, MUTED, LINE = (27, 34, 48), (93, 100, 114), (205, 202, 192)
 VERDICT_RGB = {"printable": (15, 92, 97), "printable_with_cautions": (122, 79, 0), "not_printable": (74, 33, 82)}
@@ -283,10 +283,12 @@ def _finding(doc: _Document, number: int, finding: dict, picture: bytes | None, 
     doc.set_fill_color(*SEVERITY_RGB.get(severity, MUTED))
     doc.set_text_color(255, 255, 255)
     doc.set_font(FONT, "B", 8.5)
-    doc.cell(24, 5.5, f"{number}  {severity.upper()}", fill=True, align="C")
+    badge = f"{number}  {finding_badge(finding).upper()}"
+    badge_w = max(24.0, doc.get_string_width(badge) + 4)
+    doc.cell(badge_w, 5.5, badge, fill=True, align="C")
     doc.set_text_color(*INK)
     doc.set_font(FONT, "B", 10)
-    doc.cell(text_w - 24, 5.5, f"  {rule_label(finding.get('rule', ''))}"
+    doc.cell(text_w - badge_w, 5.5, f"  {rule_label(finding.get('rule', ''))}"
              + (f" · {finding['count']} instances" if finding.get("count", 1) > 1 else ""),
              new_x=XPos.LMARGIN, new_y=YPos.NEXT)
     doc.set_font(FONT, "", 9.5)

@@ -87,6 +87,17 @@ def middle(values):
     return values[len(values) // 2] if values else None
 
 
+# A requirement's finding carries a severity for sorting and for the API, but it is not a printability finding:
+# its badge says what became of the target, so a printable part's report shows no "blocker" it does not count.
+REQUIREMENT_BADGES = {"blocker": "target missed", "caution": "target not evaluated", "note": "target met"}
+
+
+def finding_badge(finding: dict) -> str:
+    """Return the word on a finding's badge: its severity, or for a requirement what became of the target."""
+    severity = finding.get("severity", "note")
+    return REQUIREMENT_BADGES.get(severity, severity) if finding.get("rule") == "requirement" else severity
+
+
 def severity_counts(findings: list[dict]) -> dict[str, int]:
     """Return how many printability findings of each severity, every severity present as a key.
 
@@ -150,8 +161,19 @@ def measured_text(finding: dict) -> str:
         text = f"{significant(measured)} (height over width)"
         return text + (f" against a limit of {significant(limit)}" if limit is not None else "")
     suffix = f" {unit}" if unit else ""
-    text = f"{significant(measured)}{suffix}"
-    return text + (f" against a limit of {significant(limit)}{suffix}" if limit is not None else "")
+    figures = _telling_figures(measured, limit)
+    text = f"{significant(measured, figures)}{suffix}"
+    return text + (f" against a limit of {significant(limit, figures)}{suffix}" if limit is not None else "")
+
+
+def _telling_figures(measured: float, limit: float | None, least: int = 3, most: int = 6) -> int:
+    """Return the significant figures that tell a value from its limit (3, up to 6): a target missed by 0.0005x
+    does not read "1.3 x against a limit of 1.3 x"."""
+    figures = least
+    while limit is not None and figures < most and measured != limit and significant(measured, figures) == \
+            significant(limit, figures):
+        figures += 1
+    return figures
 
 
 def meets_label(value: str | None) -> str:

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from services.estimate.time_models import format_duration
 from services.numbers_text import significant
+from services.render.tables import finding_badge
 
 
 MEETS_WORDS = {"yes": "yes", "no": "NO", "not_stated": "none stated"}
@@ -21,7 +22,7 @@ def report_text(r: dict) -> str:
     for f in r["findings"]:
         where = f" at ({', '.join(f'{v:.2f}' for v in f['location_mm'])}) mm" if f.get("location_mm") else ""
         count = f" x{f['count']}" if f.get("count", 1) > 1 else ""
-        lines.append(f"  [{f['severity']}] {f['rule']}{count}: {f['message']}{where}")
+        lines.append(f"  [{finding_badge(f)}] {f['rule']}{count}: {f['message']}{where}")
     for a in r.get("what_to_change") or []:
         removed = ", ".join(a["blockers_removed"]) or "nothing"
         left = f"{a['blockers']} blocker{'' if a['blockers'] == 1 else 's'} left"

@@ -1,6 +1,7 @@
 """The PDF report, read back with pypdf (an independent PDF reader) rather than trusted blindly."""
 
 import io
+import re
 from datetime import datetime, timezone
 
 import pytest
@@ -85,6 +86,8 @@ def test_it_says_beside_the_verdict_whether_the_requirements_are_met(make_part):
     text, _ = _text(report_pdf(report.to_dict(), report.figures, checked_at=CHECKED_AT))
     assert "Requirements: Misses its requirements" in text
     assert "missed as designed" in text and "at most 1.5 mm" in text
+    # The target's finding is badged by what became of it; "blocker" stays for printability findings.
+    assert re.search(r"\d+\s+TARGET MISSED", text) and "BLOCKER" not in text
     plain, _ = _text(report_pdf({**report.to_dict(), "meets_requirements": "not_stated", "requirements": None},
                                 report.figures, checked_at=CHECKED_AT))
     assert "Requirements: No requirements stated" in plain

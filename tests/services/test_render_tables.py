@@ -74,6 +74,11 @@ def test_it_writes_where_and_how_much():
     assert measured_text({"measured": 1466.9, "limit": 25.0, "unit": "mm2"}) == "1,470 mm2 against a limit of 25 mm2"
     assert measured_text({"measured": 0.0159, "unit": "mm"}) == "0.0159 mm"
     assert measured_text({"measured": -123456.0, "unit": "mm"}) == "-123,000 mm"
+    # A value within three figures of its limit gets the figures that tell them apart (up to six): a spot ratio
+    # missed by 0.0005x read "1.3 x against a limit of 1.3 x".
+    assert measured_text({"measured": 1.3005, "limit": 1.3, "unit": "x"}) == "1.3005 x against a limit of 1.3 x"
+    assert measured_text({"measured": 2.0001, "limit": 2.0, "unit": "dB"}) == "2.0001 dB against a limit of 2 dB"
+    assert measured_text({"measured": 1.3, "limit": 1.3, "unit": "x"}) == "1.3 x against a limit of 1.3 x"
     assert location_text({"layers": [3, 3]}) == "layer 3" and measured_text({"measured": None}) == ""
     assert severity_counts([{"severity": "blocker"}]) == {"blocker": 1, "caution": 0, "note": 0}
     assert quote_label("setup_labour") == "Set-up labour" and quote_label("new_item") == "New item"

@@ -261,6 +261,9 @@ def test_the_page_says_beside_the_verdict_whether_the_requirements_are_met(alice
     assert 'id="meets-requirements">Misses its requirements<' in banner and "Not printable" in banner
     assert "missed as designed" in banner and "at most 1.5 mm" in banner
     assert "· 1 target missed" in banner  # beside the print counts, which leave requirements out
+    # Each target's finding is badged by what became of it, not as a blocker the counts above leave out.
+    badges = re.findall(r'<span class="sev sev-\w+">\d+ · ([^<]+)</span> Requirement', page)
+    assert sorted(badges) == ["target met", "target missed"]
     listing = alice_client.get(reverse("designs")).content.decode()
     assert "Misses its requirements" in listing
 

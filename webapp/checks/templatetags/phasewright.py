@@ -58,6 +58,14 @@ def zip_lists(a, b):
 
 
 @register.filter
+def badge(finding) -> str:
+    """Return the word on a finding's badge (``render.tables.finding_badge``)."""
+    from services.render.tables import finding_badge
+
+    return finding_badge(finding)
+
+
+@register.filter
 def rule_label(value: str) -> str:
     from services.render.tables import rule_label as label
 
