@@ -109,7 +109,8 @@ MATERIAL: tuple[Number, ...] = (
 BASICS = {"pixel_mm": "pixel", "layer_height_mm": "layer height", "layer_heights_mm": "offered layer heights",
           "build_volume_mm": "build volume", "xy_accuracy_mm": "XY accuracy", "z_accuracy_mm": "Z accuracy",
           "cost.currency": "Currency", "currency": "Currency", "price_unit": "Priced per", "name": "Name",
-          "notes": "Notes", "process": "Process", "technology": "Technology", "kind": "Kind", "processes": "Printed by"}
+          "notes": "Notes", "process": "Process", "technology": "Technology", "kind": "Kind", "processes": "Printed by",
+          "rf": "RF data (permittivity and loss tangent)", "band_ghz": "Design band, GHz"}
 
 
 def _labels() -> dict[str, str]:
