@@ -14,13 +14,14 @@ from django import forms
 from services.findings import SEVERITIES
 from services.profiles import PROCESSES
 from webapp.catalogue.schema import COST, MATERIAL, RULES, TIME_MODELS, Number, time_model_for
+from webapp.catalogue.templatetags.catalogue import words
 
 TECHNOLOGIES = [t for kinds in PROCESSES.values() for t in kinds]
 MAX_RF_ROWS = 40
 
 
 def _words(name: str) -> str:
-    return name.replace("_", " ")
+    return words(name)
 
 
 def number_field(number: Number, required: bool = False) -> forms.Field:

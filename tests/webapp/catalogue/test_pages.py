@@ -37,3 +37,5 @@ def test_the_printer_list_spells_technologies_as_the_trade_does(bob_client, seed
     assert "lcd masked" not in text.lower().replace("lcd-masked", "")
     profile = bob_client.get("/catalogue/printers/bay1-lcd-resin/").content.decode()
     assert "LCD-masked (vat photopolymerisation)" in profile
+    edit = bob_client.get("/catalogue/printers/bay1-lcd-resin/edit/").content.decode()
+    assert re.search(r'<option value="lcd_masked"[^>]*>LCD-masked</option>', edit)
