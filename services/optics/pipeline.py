@@ -371,16 +371,21 @@ def _figures(rf: RFValues, printed: _Model, design: _Model, passes: list[_Pass])
     run = _pass_of(passes, mid, rf)
     local = int(np.flatnonzero(run.plan.index == mid)[0])
     grid = run.plan.grid
+    # Curves against frequency only where there is more than one: at one frequency the table holds the same
+    # numbers, and a column of dots said nothing more (and cost a fifth of the optics' figures' time).
+    sweep = len(rf.freqs_ghz) > 1
     out = {
-        "optics_loss.png": figures.loss_png(rf.freqs_ghz, p["absorption_db"], p["reflection_db"], p["spillover_db"],
-                                            d["transmission_loss_db"]),
         "optics_phase_map.png": figures.phase_map_png(
             _phase_from_axis(run.models["nominal"].sparams.s21[local], grid.axis_index), run.illum.aperture >= 0.5,
             grid.cell_mm, float(rf.freqs_ghz[mid])),
     }
+    if sweep:
+        out["optics_loss.png"] = figures.loss_png(rf.freqs_ghz, p["absorption_db"], p["reflection_db"],
+                                                  p["spillover_db"], d["transmission_loss_db"])
     if printed.focus is not None:
-        out["optics_fwhm.png"] = figures.fwhm_png(rf.freqs_ghz, [m.fwhm_mm for m in printed.focus],
-                                                  [m.diffraction_limited_fwhm_mm for m in printed.focus])
+        if sweep:
+            out["optics_fwhm.png"] = figures.fwhm_png(rf.freqs_ghz, [m.fwhm_mm for m in printed.focus],
+                                                      [m.diffraction_limited_fwhm_mm for m in printed.focus])
         m = printed.focus[mid]
         out["optics_focal_plane.png"] = figures.focal_plane_png(
             np.abs(m.spot.field) ** 2, np.abs(m.ideal.field) ** 2, grid.cell_mm, m.spot.peak_index,

@@ -348,9 +348,10 @@ def _optics(doc: _Document, optics: dict | None, figures: Mapping[str, bytes]) -
                       _pair(d.get("strehl"), p.get("strehl"), 3), _pair(d.get("wavefront_focus_mm"), p.get("wavefront_focus_mm"), 1),
                       _num(r["phase_rms_rad"], 3)])
     _table(doc, table, (16, 16, 18, 32, 30, 36, 30))
-    for name in ("optics_loss.png", "optics_focal_plane.png"):
+    # The loss against frequency (drawn for two frequencies or more), the focal plane, and the transmitted phase.
+    for name, width_mm in (("optics_loss.png", 150), ("optics_focal_plane.png", 150), ("optics_phase_map.png", 100)):
         if name in figures:
-            _figure(doc, figures[name], 150, "")
+            _figure(doc, figures[name], width_mm, "")
 
 
 def _num(value, digits: int) -> str:

@@ -60,9 +60,11 @@ def test_it_embeds_the_pictures(finned_report):
     _, reader = _text(pdf)
     images = sum(len(page.images) for page in reader.pages)
     pictures = [f["picture"] for f in report["findings"] if f["picture"]]
-    placed = [n for n in ("perspective.png", "thickness_map.png", "optics_loss.png", "optics_focal_plane.png")
-              if n in finned_report.figures]
-    assert pictures and {"perspective.png", "thickness_map.png", "optics_loss.png"} <= set(placed)
+    placed = [n for n in ("perspective.png", "thickness_map.png", "optics_loss.png", "optics_focal_plane.png",
+                          "optics_phase_map.png") if n in finned_report.figures]
+    # One frequency: no curve against frequency, the phase map instead.
+    assert pictures and {"perspective.png", "thickness_map.png", "optics_phase_map.png"} <= set(placed)
+    assert "optics_loss.png" not in finned_report.figures
     assert images == len(pictures) + len(placed)  # one per finding's picture, both views, the optics plots made
 
 

@@ -135,8 +135,11 @@ def test_spillover_of_a_disc_follows_the_edge_taper():
     """A 10 dB edge taper spills exp(-2 a^2 / w^2) = 10 % past the rim (Goldsmith 1998 ch. 2)."""
     disc = part_from(revolve(np.array([0.0, 20.0]), np.array([1.0, 1.0]), segments=256), "disc")
     stack = build_layer_stack(disc, pixel_mm=0.1, layer_height_mm=0.1)
-    d = optics_report(part=disc, printed=stack, material=material(), printer=printer(0.1, 0.1),
-                      settings=OpticsSettings(freqs_ghz=(100.0,), edge_taper_db=10.0)).to_dict()
+    result = optics_report(part=disc, printed=stack, material=material(), printer=printer(0.1, 0.1),
+                           settings=OpticsSettings(freqs_ghz=(100.0,), edge_taper_db=10.0))
+    d = result.to_dict()
+    # One frequency: the phase map, and no curve against frequency (the table holds its few numbers).
+    assert set(result.figures) == {"optics_phase_map.png"}
     assert d["illumination"]["spillover_fraction"] == pytest.approx(0.1, abs=0.01)
     assert d["spillover_db"][0] == pytest.approx(-10 * np.log10(0.9), abs=0.05)
 

@@ -28,8 +28,10 @@ def test_the_report_reads_verdict_first_then_findings_with_pictures(alice_client
     assert f"layers {first.layers[0]}-{first.layers[1]}" in page and f"{first.measured:,.3f} mm" in page
     for finding in finned_report.findings:
         assert reverse("check_file", args=[check.public_id, finding.picture]) in page
-    for name in ("perspective.png", "thickness_map.png", "optics_loss.png"):
+    for name in ("perspective.png", "thickness_map.png", "optics_phase_map.png"):
         assert reverse("check_file", args=[check.public_id, name]) in page
+    # At one frequency no curve against frequency is drawn (the table holds its numbers).
+    assert "optics_loss.png" not in page and "optics_fwhm.png" not in page
     assert f"{finned_report.estimate['cost']['total']:,.2f}" in page and "Set-up labour" in page
     assert f"waste {finned_report.estimate['waste_ml']:.2f} ml at the material's 10 %" in page  # part + supports + waste
     assert reverse("check_pdf", args=[check.public_id]) in page and "nitrile gloves" in page
