@@ -51,9 +51,10 @@ def clear_aperture(stack, *, axis_mm: tuple[float, float], given_mm: float | Non
     if not outline.any():
         return _aperture(stack, outline, "outline", "The part has no footprint.", axis_mm)
     x, y = stack.x_centres_mm[None, :] - axis_mm[0], stack.y_centres_mm[:, None] - axis_mm[1]
+    x2, y2 = x * x, y * y  # squared distances: a sum per pixel, where np.hypot took 4 ms a band of 256 rows
 
     def within(radius_mm: float) -> np.ndarray:
-        return _by_rows(outline.shape, lambda rows: np.hypot(x, y[rows]) <= radius_mm)
+        return _by_rows(outline.shape, lambda rows: x2 + y2[rows] <= radius_mm * radius_mm)
 
     if given_mm is not None:
         return _aperture(stack, outline & within(given_mm / 2), "given",
@@ -67,8 +68,8 @@ def clear_aperture(stack, *, axis_mm: tuple[float, float], given_mm: float | Non
         half = stack.pixel_mm / 2
         if outline.sum() < ROUND_AREA_SHARE * _box_area(outline):
             r0, r1, _, _ = raster.bbox(zone)
-            widest = max(float(np.max(np.hypot(x, y[r:r + BAND_ROWS]), where=zone[r:r + BAND_ROWS], initial=0.0))
-                         for r in range(r0, r1, BAND_ROWS))
+            widest = np.sqrt(max(float(np.max(x2 + y2[r:r + BAND_ROWS], where=zone[r:r + BAND_ROWS], initial=0.0))
+                                 for r in range(r0, r1, BAND_ROWS)))
             inside = within(widest + half)
         else:
             r0, r1, c0, c1 = raster.bbox(zone)  # |x| is largest at one of the zone's end columns (rows alike)
