@@ -40,18 +40,27 @@ class AngularSpectrum:
 
     def _transfer(self, fx: np.ndarray, fy: np.ndarray, z_mm: float) -> np.ndarray:
         lam = self.wavelength_mm
-        f2 = fx**2 + fy**2
-        if self.paraxial:
-            h = np.exp(-2j * np.pi * z_mm / lam) * np.exp(1j * np.pi * lam * z_mm * f2)
-        else:
-            arg = 1.0 / lam**2 - f2
-            kz = np.sqrt(np.abs(arg))
-            # Back-propagation (z < 0) drops the evanescent waves rather than growing them.
-            h = np.where(arg >= 0, np.exp(-2j * np.pi * z_mm * kz), np.exp(-2 * np.pi * abs(z_mm) * kz))
         # Band limit: u_lim = 1 / (lambda sqrt((2 du z)^2 + 1)), du the padded window's frequency step.
         lim_x = 1.0 / (lam * np.sqrt((2 * z_mm / (self.padded[1] * self.cell_mm)) ** 2 + 1))
         lim_y = 1.0 / (lam * np.sqrt((2 * z_mm / (self.padded[0] * self.cell_mm)) ** 2 + 1))
-        return h * ((np.abs(fx) < lim_x) & (np.abs(fy) < lim_y))
+        # H is taken only inside the band (at most the propagating square, a quarter of a window of cells of
+        # lambda / 4), and is 0 outside it: one exp over the band, not two over the window.
+        rows, cols = np.flatnonzero(np.abs(fy[:, 0]) < lim_y), np.flatnonzero(np.abs(fx[0]) < lim_x)
+        h = np.zeros((fy.shape[0], fx.shape[1]), dtype=complex)
+        if rows.size == 0 or cols.size == 0:
+            return h
+        # The band is an interval of non-negative and one of negative frequencies on each axis (fftfreq order).
+        for r in _runs(rows):
+            for c in _runs(cols):
+                f2 = fx[0, c][None, :] ** 2 + fy[r, 0][:, None] ** 2
+                if self.paraxial:
+                    h[r, c] = np.exp(-2j * np.pi * z_mm / lam) * np.exp(1j * np.pi * lam * z_mm * f2)
+                    continue
+                arg = 1.0 / lam**2 - f2
+                kz = np.sqrt(np.abs(arg))
+                # Back-propagation (z < 0) drops the evanescent waves rather than growing them.
+                h[r, c] = np.where(arg >= 0, np.exp(-2j * np.pi * z_mm * kz), np.exp(-2 * np.pi * abs(z_mm) * kz))
+        return h
 
     def plane(self, z_mm: float, *, padded: bool = False) -> np.ndarray:
         """Return the field at distance z on the original (ny, nx) window, or on the padded one."""
@@ -87,14 +96,15 @@ class AngularSpectrum:
     def _axis_terms(self, index: tuple[int, int]):
         """Return the weights, kz and band-limit cut-off distance of the plane waves that matter."""
         py, px = index[0] + self.offset[0], index[1] + self.offset[1]
-        ky = np.arange(self.padded[0])[:, None] * py / self.padded[0]
-        kx = np.arange(self.padded[1])[None, :] * px / self.padded[1]
-        weights = self.spectrum * np.exp(2j * np.pi * (ky + kx)) / (self.padded[0] * self.padded[1])
-        fx = np.broadcast_to(self.fx, self.padded)
-        fy = np.broadcast_to(self.fy, self.padded)
-        arg = 1.0 / self.wavelength_mm**2 - fx**2 - fy**2
-        keep = (np.abs(weights) > np.abs(weights).max() * 1e-9) & (arg >= 0)
-        fx, fy, arg = np.abs(fx[keep]), np.abs(fy[keep]), arg[keep]
+        magnitude = np.abs(self.spectrum)  # the weights' own: the phase factor below has modulus 1
+        arg = 1.0 / self.wavelength_mm**2 - self.fx**2 - self.fy**2
+        keep = (magnitude > magnitude.max() * 1e-9) & (arg >= 0)
+        rows, cols = np.nonzero(keep)
+        # exp(j 2 pi (k_y p_y / N_y + k_x p_x / N_x)) as the product of its two factors, taken where kept.
+        phase_y = np.exp(2j * np.pi * np.arange(self.padded[0]) * py / self.padded[0])
+        phase_x = np.exp(2j * np.pi * np.arange(self.padded[1]) * px / self.padded[1])
+        weights = self.spectrum[keep] * phase_y[rows] * phase_x[cols] / (self.padded[0] * self.padded[1])
+        fx, fy, arg = np.abs(self.fx[0, cols]), np.abs(self.fy[rows, 0]), arg[keep]
         lam = self.wavelength_mm
         with np.errstate(divide="ignore"):
             # |f| < 1 / (lambda sqrt((2 z / L)^2 + 1))  <=>  z < L/2 sqrt(1 / (lambda f)^2 - 1)
@@ -102,4 +112,10 @@ class AngularSpectrum:
             cut_y = self.padded[0] * self.cell_mm / 2 * np.sqrt(np.maximum(1 / (lam * fy) ** 2 - 1, 0))
         cut = np.minimum(cut_x, cut_y)
         order = np.argsort(-cut, kind="stable")
-        return weights[keep][order], np.sqrt(arg)[order], cut[order]
+        return weights[order], np.sqrt(arg)[order], cut[order]
+
+
+def _runs(index: np.ndarray) -> list[slice]:
+    """Return the ascending ``index`` as slices of consecutive values."""
+    breaks = np.flatnonzero(np.diff(index) != 1) + 1
+    return [slice(int(part[0]), int(part[-1]) + 1) for part in np.split(index, breaks)]

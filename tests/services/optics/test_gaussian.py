@@ -84,3 +84,24 @@ def test_axis_scan_equals_full_planes():
     z = np.linspace(5.0, 80.0, 16)
     scan = asm.on_axis(z, (64, 64))
     assert scan == pytest.approx([asm.plane(d)[64, 64] for d in z], rel=1e-7)
+
+
+@pytest.mark.parametrize("paraxial", [False, True])
+@pytest.mark.parametrize("z_mm", [-7.0, 0.0, 30.0, 400.0, 5000.0])
+def test_the_transfer_function_is_taken_only_inside_its_band_limit(paraxial, z_mm):
+    """H over the band limit's rectangle, 0 outside, as the whole-window formula of Goodman (2005) eq. 3-74 with
+    Matsushima & Shimobaba's (2009) limit gives it: backwards (evanescent dropped), near and far (narrow band)."""
+    rng = np.random.default_rng(3)
+    asm = AngularSpectrum(rng.normal(size=(37, 52)) + 0j, cell_mm=0.6, wavelength_mm=LAM_100, paraxial=paraxial)
+    lam, fx, fy = LAM_100, asm.fx, asm.fy
+    f2 = fx**2 + fy**2
+    if paraxial:
+        h = np.exp(-2j * np.pi * z_mm / lam) * np.exp(1j * np.pi * lam * z_mm * f2)
+    else:
+        arg = 1.0 / lam**2 - f2
+        kz = np.sqrt(np.abs(arg))
+        h = np.where(arg >= 0, np.exp(-2j * np.pi * z_mm * kz), np.exp(-2 * np.pi * abs(z_mm) * kz))
+    lim_x = 1.0 / (lam * np.sqrt((2 * z_mm / (asm.padded[1] * 0.6)) ** 2 + 1))
+    lim_y = 1.0 / (lam * np.sqrt((2 * z_mm / (asm.padded[0] * 0.6)) ** 2 + 1))
+    expected = h * ((np.abs(fx) < lim_x) & (np.abs(fy) < lim_y))
+    np.testing.assert_allclose(asm.transfer(z_mm), expected, rtol=0, atol=1e-12)
