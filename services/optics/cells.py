@@ -468,10 +468,10 @@ def _site_runs(stack, grid: CellGrid, *, with_edges: bool) -> Iterator[CellRun]:
 
     def read(a: np.ndarray) -> np.ndarray:
         """Return the four sites' sums of ``a``, (4, ny, nx)."""
-        along = strips(a)
+        running = running_sum(strips(a), 1)  # once over the strips: each cell row reads two of them
         out = []
         for r in range(2):
-            across = running_sum(along[strip_of[r]], 1)
+            across = running[strip_of[r]]
             for side in range(2):
                 out.append(np.where(reads.odd[r][:, None], cols[1][side](across, 1), cols[0][side](across, 1)))
         return np.stack(out)
