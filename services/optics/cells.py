@@ -472,8 +472,13 @@ def _site_runs(stack, grid: CellGrid, *, with_edges: bool) -> Iterator[CellRun]:
         out = []
         for r in range(2):
             across = running[strip_of[r]]
+            odd = np.flatnonzero(reads.odd[r])
             for side in range(2):
-                out.append(np.where(reads.odd[r][:, None], cols[1][side](across, 1), cols[0][side](across, 1)))
+                # Each cell row reads its own parity's sites: the odd rows (a hexagonal lattice's) apart.
+                sums = cols[0][side](across, 1)
+                if odd.size:
+                    sums[odd] = cols[1][side](across[odd], 1)
+                out.append(sums)
         return np.stack(out)
 
     for first, last, mask in stack.runs():
