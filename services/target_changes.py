@@ -8,7 +8,8 @@ The designer's targets are then judged again. A generated part is also regenerat
 a designer would try first (``components.variants``: more levels, a thinner base, a matching layer, the other
 cell kind), for the same printer, and each checked the same way (a variant the printer cannot make is
 dropped). For an uploaded part, targets missed in focus, spot size or size are the design's to change and no
-catalogue change is tried for them. The best three candidates are kept, with the numbers they would give.
+catalogue change is tried for them. Three candidates are kept, with the numbers they would give: the best, the
+best meeting a target the others shown do not, then the next best.
 """
 
 from __future__ import annotations
@@ -104,7 +105,22 @@ def changes_for_targets(*, part: Part, stack, printer: PrinterProfile, material:
             progress((i + 1) / len(candidates))
     better = [c for c in tried if c.met > 0]
     better.sort(key=lambda c: (c.missed, -c.met, ORDER.index(c.kind)))
-    return better[:SHOWN]
+    return _shown(better)
+
+
+def _shown(better: list[TargetChange]) -> list[TargetChange]:
+    """Return up to ``SHOWN`` of the changes (best first): the best, then the best one meeting a target none shown
+    meets, then the next best. Three materials that each meet the loss but miss the focus would otherwise hide
+    the design change that meets the focus."""
+    shown: list[TargetChange] = []
+    covered: set[str] = set()
+    for change in better:
+        meets = {r.label for r in change.results if r.status == "met"}
+        if len(shown) < SHOWN and (not shown or meets - covered):
+            shown.append(change)
+            covered |= meets
+    shown += [c for c in better if c not in shown][:SHOWN - len(shown)]
+    return sorted(shown, key=better.index)
 
 
 ORDER = ("design", *KINDS)  # least disruptive first: the same printer and material, then the catalogue's

@@ -138,3 +138,36 @@ def test_a_two_level_plate_missing_its_strehl_is_regenerated_with_four_levels_th
     sinc2 = float(np.sinc(1 / 4) ** 2)
     assert strehl.status == "met" and strehl.value >= max(0.8, sinc2 - 0.05)
     assert strehl.value > targets.outcomes[0].as_designed
+
+
+def test_a_change_meeting_a_target_no_better_change_meets_is_shown():
+    """Materials that meet the loss and the efficiency but miss the focal length rank above the design change that
+    meets the focal length; the three shown still hold that design change (the best, then the best meeting a target
+    none shown meets, then the next best). The optics are stand-ins: only the choice of what is shown is tested."""
+    printer, material = PRINTERS["bay1-lcd-resin"], MATERIALS["standard-resin"]
+    req = Requirements(max_insertion_loss_db=2.0, min_focusing_efficiency=0.5, focal_length_mm=30.0,
+                       focal_tolerance_mm=1.5)
+    part = build_component("multilevel", {"levels": 4, "diameter_mm": 20.0, "focal_length_mm": 30.0,
+                                          "freq_ghz": 140.0}, material=material, printer=printer).part
+    stack = layers.build_layer_stack(part, pixel_mm=printer.pixel_mm, layer_height_mm=printer.layer_height_mm)
+
+    def run(part_, stack_, printer_, material_):
+        own = material_.slug == material.slug
+        loss, efficiency = (2.5, 0.4) if own else (0.8, 0.6)
+        focal = 30.2 if part_.parameters["levels"] == 8 else 33.0
+        focus = {"wavefront_focus_mm": [focal], "focusing_efficiency": [efficiency]}
+        return {"frequencies_ghz": [140.0], "transmission_loss_db": [loss], "focus": focus,
+                "as_designed": {"transmission_loss_db": [loss], "focus": focus}, "tolerance": {"variants": {}}}
+
+    targets = check_requirements(req, optics=run(part, stack, printer, material), bbox_mm=part.bbox_mm)
+    assert [o.status for o in targets.outcomes] == ["missed"] * 3
+    changes = changes_for_targets(part=part, stack=stack, printer=printer, material=material,
+                                  settings=CheckSettings(requirements=req), targets=targets, run_optics=run,
+                                  catalogue=PAIRS, budget_s=600)
+    assert len(changes) == 3
+    design = [c for c in changes if c.kind == "design"]
+    assert len(design) == 1 and "8 levels (was 4)" in design[0].change and design[0].missed == 2
+    assert {r.label: r.status for r in design[0].results}["focal length"] == "met"
+    others = [c for c in changes if c.kind != "design"]
+    assert len(others) == 2 and all(c.missed == 1 and c.met == 2 for c in others)
+    assert changes[-1] is design[0]  # shown best first: it meets fewer targets than the materials do
