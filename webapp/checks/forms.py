@@ -211,7 +211,7 @@ class UploadForm(CheckOptionsForm):
     file = MultipleFileField(label="Mesh files", help_text="STL, 3MF, OBJ or PLY; one or many, each becomes a design "
                                                            "and a check; the format is read from the bytes")
     units = forms.ChoiceField(
-        choices=[("", "choose the unit the file was drawn in")] + [(u, u) for u in UNITS] + [(FROM_FILE, "as the 3MF "
+        choices=[("", "choose the file's unit")] + [(u, u) for u in UNITS] + [(FROM_FILE, "as the 3MF "
                  "file states")],
         error_messages={"required": "Choose the unit the file was drawn in: STL, OBJ and PLY carry none, and a "
                                     "wrong guess turns a 60 mm lens into a 2.4 mm one."},
