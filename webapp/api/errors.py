@@ -37,6 +37,8 @@ def api_not_found(request: HttpRequest, *args, **kwargs) -> HttpResponse:
 def _validation_message(errors: list[dict]) -> str:
     first = errors[0] if errors else {}
     where = ".".join(str(p) for p in first.get("loc", ()) if p not in ("body", "query", "path", "form", "payload"))
+    if first.get("type") == "extra_forbidden":
+        return f"{where}: this request has no such field (the API description, /api/v1/openapi.json, lists them)."
     return f"{where or 'The request'}: {first.get('msg', 'is not valid')}."
 
 

@@ -8,6 +8,7 @@ from uuid import UUID
 
 from django.urls import reverse
 from ninja import Field, Schema
+from pydantic import ConfigDict
 
 from services.components import KINDS
 from services.settings import ORIENTATIONS
@@ -71,7 +72,14 @@ class DesignOut(Schema):
         return obj.revision_of.public_id if obj.revision_of_id else None
 
 
-class ParametricIn(Schema):
+class StrictIn(Schema):
+    """A request body: a field it does not have is refused by name (a misspelt or misplaced target, e.g.
+    ``requirements`` sent with a parametric design, would otherwise be dropped without a word)."""
+
+    model_config = ConfigDict(extra="forbid")
+
+
+class ParametricIn(StrictIn):
     kind: Kind
     # Keys stay plain str: a key pattern reaches the description as propertyNames, which clients and fuzzers
     # do not all honour; a key that is not a parameter of the kind (a NUL in it included) is refused with a
@@ -83,7 +91,7 @@ class ParametricIn(Schema):
     note: str = Field("", max_length=300, pattern=NO_NUL, description="what changed in this revision")
 
 
-class OpticsIn(Schema):
+class OpticsIn(StrictIn):
     freqs_ghz: list[FreqGhz] = Field(default_factory=list, max_length=201, description="empty: the material's band")
     focal_length_mm: float | None = Field(None, gt=0)
     edge_taper_db: float | None = Field(None, gt=0, le=60)
@@ -92,7 +100,7 @@ class OpticsIn(Schema):
                                             "generator's, else detected from the part")
 
 
-class RequirementsIn(Schema):
+class RequirementsIn(StrictIn):
     """The designer's targets; each checked as designed, as printed and over the printer's tolerance band."""
 
     band_ghz: list[FreqGhz] | None = Field(None, min_length=2, max_length=2, description="[low, high]; with no "
@@ -113,7 +121,7 @@ class RequirementsIn(Schema):
     min_mode_purity: float | None = Field(None, description="vortex plates, 0 to 1")
 
 
-class CheckIn(Schema):
+class CheckIn(StrictIn):
     design: UUID
     printer: str = Field(pattern=NO_NUL)
     material: str = Field(pattern=NO_NUL)
@@ -240,25 +248,25 @@ class CatalogueOut(Schema):
     data: dict[str, Any] = Field(description="every field of the printer profile or material, with sources")
 
 
-class CatalogueIn(Schema):
+class CatalogueIn(StrictIn):
     slug: str = Field(max_length=50, pattern=NO_NUL, description="short name: lower-case letters, digits and hyphens")
     name: str = Field(max_length=120, pattern=NO_NUL)
     data: dict[str, Any] = Field(description="every field of the printer profile or material (see GET of one)")
     note: str = Field("", max_length=300, pattern=NO_NUL, description="why it was added")
 
 
-class CatalogueUpdateIn(Schema):
+class CatalogueUpdateIn(StrictIn):
     data: dict[str, Any] = Field(description="the whole new data; unchanged data makes no new version")
     name: str | None = Field(None, max_length=120, pattern=NO_NUL)
     note: str = Field("", max_length=300, pattern=NO_NUL, description="what changed and why")
     base_version: int | None = Field(None, description="the version the edit started from; a newer one refuses it")
 
 
-class RetireIn(Schema):
+class RetireIn(StrictIn):
     retired: bool = Field(True, description="false brings a retired entry back")
 
 
-class PrintLogIn(Schema):
+class PrintLogIn(StrictIn):
     check: UUID = Field(description="the finished check whose part was printed")
     actual_print_time_s: float
     succeeded: bool

@@ -118,6 +118,24 @@ def test_it_builds_a_parametric_design_once(as_alice):
 
 
 @pytest.mark.usefixtures("seeded")
+def test_a_field_the_request_does_not_have_is_refused_by_name(as_alice):
+    """Targets sent with a parametric design (they belong to a check) were dropped without a word; now 422 names
+    the field, and nothing is stored. A check's misspelt target is refused the same way."""
+    request = {"kind": "window", "parameters": {"diameter_mm": 30}, "printer": "bay1-lcd-resin",
+               "material": "standard-resin", "requirements": {"focal_length_mm": 100}}
+    response = as_alice.post("designs/parametric", request)
+    body = response.json()
+    assert response.status_code == 422 and body["code"] == "invalid_request"
+    assert body["message"].startswith("requirements: this request has no such field")
+    assert as_alice.get("designs").json()["items"] == []
+    design = as_alice.post("designs/parametric", {k: v for k, v in request.items() if k != "requirements"}).json()
+    check = as_alice.post("checks", {"design": design["id"], "printer": "bay1-lcd-resin", "material": "standard-resin",
+                                     "requirements": {"max_loss_db": 2}})
+    assert check.status_code == 422 and check.json()["message"].startswith("requirements.max_loss_db: this request")
+    assert as_alice.get("checks").json()["items"] == []
+
+
+@pytest.mark.usefixtures("seeded")
 def test_it_explains_a_bad_parameter(as_alice):
     """A parameter out of range answers 400 with the component's own sentence; an unknown printer too."""
     request = {"kind": "window", "parameters": {"diameter_mm": -3}, "printer": "bay1-lcd-resin",
