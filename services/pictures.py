@@ -339,6 +339,9 @@ def _titled(image: Image.Image, title: str, note: str = "") -> Image.Image:
 
 
 def _png(img: Image.Image) -> bytes:
+    """Return the picture as PNG at zlib's default level: the thickness map in 47 against 298 ms at the smallest
+    size PIL can make (``optimize``, level 9), for 5 % more bytes (160 against 151 kB); the perspective view 12
+    against 74 ms. The overview pictures are drawn after the rules and optics, where every check waits for them."""
     buf = io.BytesIO()
-    img.save(buf, format="PNG", optimize=True)
+    img.save(buf, format="PNG", compress_level=6)
     return buf.getvalue()
