@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import io
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
@@ -58,12 +59,38 @@ def _add_scale_bar(canvas: Image.Image, x0: int, y0: int, px_per_mm: float, widt
     draw.text((x0 + bar + 8, y0 - 5), label, fill=(20, 20, 20), font=_font())
 
 
+@dataclass(frozen=True, slots=True, eq=False)
+class Drawn:
+    """A picture drawn up to its markers, which need the findings: the image and where a point (mm) lands on it.
+
+    ``finish`` lays the markers on a copy and encodes it; the costly drawing can so be made before the findings
+    are known (beside the rules), and the picture is the same as drawn in one go.
+    """
+
+    image: Image.Image
+    to_px: Callable[[np.ndarray], tuple[float, float]]
+    note: str | None = None  # with a title: the picture is framed under it after the markers (``_titled``)
+    title: str | None = None
+
+    def finish(self, markers: tuple[Marker, ...] = ()) -> bytes:
+        image = self.image.copy()
+        _draw_markers(image, [(*self.to_px(np.asarray(m.xyz_mm, float)), m) for m in markers])
+        return _png(image if self.title is None else _titled(image, self.title, self.note or ""))
+
+
 def map_png(values: np.ndarray, *, pixel_mm: float, unit: str, title: str, mask: np.ndarray | None = None,
             max_px: int = 520, markers: tuple[Marker, ...] = (), origin_mm: tuple[float, float] = (0.0, 0.0)) -> bytes:
     """Return a PNG of a 2-D map (row 0 = lowest y) with a colour bar, a mm scale bar and numbered markers.
 
     Pixel (r, c) has its centre at origin + ((c + 0.5), (r + 0.5)) x pixel_mm, as in the layer stack.
     """
+    return map_drawn(values, pixel_mm=pixel_mm, unit=unit, title=title, mask=mask, max_px=max_px,
+                     origin_mm=origin_mm).finish(markers)
+
+
+def map_drawn(values: np.ndarray, *, pixel_mm: float, unit: str, title: str, mask: np.ndarray | None = None,
+              max_px: int = 520, origin_mm: tuple[float, float] = (0.0, 0.0)) -> Drawn:
+    """Return ``map_png``'s picture drawn up to its markers."""
     vmax = float(np.nanmax(values)) if np.any(np.isfinite(values)) else 1.0
     vmin = float(np.nanmin(values)) if np.any(np.isfinite(values)) else 0.0
     span = vmax - vmin or 1.0
@@ -84,9 +111,11 @@ def map_png(values: np.ndarray, *, pixel_mm: float, unit: str, title: str, mask:
     draw.text((pad * 2 + img.width + bar_w + 6, pad + 14 + img.height), f"{vmin:.3g} {unit}", fill=(20, 20, 20), font=_font())
     _add_scale_bar(canvas, pad, pad + 30 + img.height, scale / pixel_mm, img.width)
     px_per_mm = scale / pixel_mm
-    _draw_markers(canvas, [(pad + (m.xyz_mm[0] - origin_mm[0]) * px_per_mm,
-                            pad + 22 + img.height - (m.xyz_mm[1] - origin_mm[1]) * px_per_mm, m) for m in markers])
-    return _png(canvas)
+
+    def to_px(xyz_mm: np.ndarray) -> tuple[float, float]:
+        return (pad + (xyz_mm[0] - origin_mm[0]) * px_per_mm, pad + 22 + img.height - (xyz_mm[1] - origin_mm[1]) * px_per_mm)
+
+    return Drawn(canvas, to_px)
 
 
 def _shrunk(values: np.ndarray, mask: np.ndarray | None, max_px: int):
@@ -290,6 +319,13 @@ def perspective_png(vertices_mm: np.ndarray, faces: np.ndarray, *, title: str, m
     Painter's algorithm over the faces that face the camera (flat shading, one light); drawn at
     twice the size and reduced, which smooths the edges.
     """
+    return perspective_drawn(vertices_mm, faces, title=title, max_px=max_px, max_faces=max_faces,
+                             azimuth_deg=azimuth_deg, elevation_deg=elevation_deg).finish(markers)
+
+
+def perspective_drawn(vertices_mm: np.ndarray, faces: np.ndarray, *, title: str, max_px: int = 520,
+                      max_faces: int = 40_000, azimuth_deg: float = -35.0, elevation_deg: float = 32.0) -> Drawn:
+    """Return ``perspective_png``'s picture drawn up to its markers."""
     vertices, faces = cluster_vertices(np.asarray(vertices_mm, float), np.asarray(faces), max_faces)
     lo, hi = vertices.min(axis=0), vertices.max(axis=0)
     camera = _Camera.looking_at((lo + hi) / 2, 3.0 * float(np.linalg.norm(hi - lo)) + 1.0, azimuth_deg, elevation_deg)
@@ -306,9 +342,11 @@ def perspective_png(vertices_mm: np.ndarray, faces: np.ndarray, *, title: str, m
     for tri, colour in zip(screen[faces[order]].tolist(), colours):
         draw.polygon([tuple(p) for p in tri], fill=tuple(colour))
     image = canvas.resize((fit.width // 2, fit.height // 2), Image.LANCZOS)
-    points = [(*(fit(camera.project(np.array([m.xyz_mm], float))[0])[0] / 2), m) for m in markers]
-    _draw_markers(image, points)
-    return _png(_titled(image, title, f"grid {step:g} mm"))
+
+    def to_px(xyz_mm: np.ndarray) -> tuple[float, float]:
+        return tuple(fit(camera.project(np.array([xyz_mm], float))[0])[0] / 2)
+
+    return Drawn(image, to_px, f"grid {step:g} mm", title)
 
 
 class _ScreenFit:

@@ -126,7 +126,8 @@ def build_report(*, part: Part, printer: PrinterProfile, material: Material,
                                          "optics": optics.to_dict() if optics else None,
                                          "build": {**build, **rules.summary}})
     findings = [*map(_finite_finding, findings), *_blanked_findings(part.name, blanked)]
-    overview, view = stages.run("pictures", lambda p: (_overview_pictures(stack, prepared, findings),
+    prepared, drawn = prepared
+    overview, view = stages.run("pictures", lambda p: (_overview_pictures(drawn, findings),
                                                        part_view_json(oriented, stack, findings, prepared)))
     figures.update(overview)
     # The alternatives re-run the mesh, build-fit and rule checks only, so only their blockers go in: a change is
@@ -155,14 +156,14 @@ def build_report(*, part: Part, printer: PrinterProfile, material: Material,
 
 def _rules_estimate_optics(stages: Stages, *, part, oriented, stack, printer, material, settings, calibration,
                            concurrent: bool):
-    """Return (rules, estimate, optics, prepared views): rules then estimate (it needs their support volume),
+    """Return (rules, estimate, optics, (prepared views, pictures drawn up to their markers)): rules then estimate (it needs their support volume),
     optics beside them, and the finding-free half of the pictures in whichever branch ends its own work first.
 
     Both branches only read the stack and the part. Whether run side by side or in order, the
     outcome is the same, errors included (see Stages.side_by_side).
     """
     solid = _has_solid(stack)
-    views = EitherBranch(stages, "views", lambda p: prepare_views(oriented, stack))
+    views = EitherBranch(stages, "views", lambda p: _prepared_views(oriented, stack))
 
     def printability():
         rules = stages.run("rules", lambda p: run_rules(stack=stack, part=oriented, printer=printer, progress=p))
@@ -274,19 +275,32 @@ def _optics(part, stack, printer, material, settings, progress=None, with_figure
                          settings=settings.effective_optics(), progress=progress, with_figures=with_figures)
 
 
-def _overview_pictures(stack, prepared: PreparedViews, findings: list[Finding]) -> dict[str, bytes]:
-    """Return the views a designer looks at first: from above and in perspective, findings numbered.
+def _prepared_views(oriented, stack) -> tuple[PreparedViews, dict[str, pictures.Drawn]]:
+    """Return what the views draw before the findings are known: the decimated mesh and layer outlines, and the
+    views a designer looks at first, from above and in perspective, drawn up to their markers.
 
-    A marker's number is the finding's place in the report's (sorted) list, counting from 1. The
-    perspective draws the prepared (decimated) mesh, the one the 3D view shows.
+    The perspective draws the prepared (decimated) mesh, the one the 3D view shows. Drawn here, beside the
+    rules, the pictures are the same as drawn after them; only the markers wait for the findings.
+    """
+    prepared = prepare_views(oriented, stack)
+    thick = stack.thickness_mm
+    drawn = {
+        "thickness_map.png": pictures.map_drawn(thick, pixel_mm=stack.pixel_mm, unit="mm", mask=thick > 0,
+                                                origin_mm=stack.origin_mm[:2],
+                                                title="As-printed thickness, seen from above (+z)"),
+        "perspective.png": pictures.perspective_drawn(prepared.vertices_mm, prepared.faces,
+                                                      title="The part as built, in perspective (build plate below)"),
+    }
+    return prepared, drawn
+
+
+def _overview_pictures(drawn: dict[str, pictures.Drawn], findings: list[Finding]) -> dict[str, bytes]:
+    """Return the views a designer looks at first with the findings numbered on them.
+
+    A marker's number is the finding's place in the report's (sorted) list, counting from 1.
     """
     markers = finding_markers(findings)
-    thick = stack.thickness_mm
-    top = pictures.map_png(thick, pixel_mm=stack.pixel_mm, unit="mm", mask=thick > 0, markers=markers,
-                           origin_mm=stack.origin_mm[:2], title="As-printed thickness, seen from above (+z)")
-    view = pictures.perspective_png(prepared.vertices_mm, prepared.faces, markers=markers,
-                                    title="The part as built, in perspective (build plate below)")
-    return {"thickness_map.png": top, "perspective.png": view}
+    return {name: picture.finish(markers) for name, picture in drawn.items()}
 
 
 def finding_markers(findings, limit: int = 30) -> tuple[pictures.Marker, ...]:

@@ -9,7 +9,8 @@ from PIL import Image
 from services.findings import Finding
 from services.layers import LayerStack
 from services.pictures import SEVERITY_RGB
-from services.report import _overview_pictures, finding_markers
+from services import pictures
+from services.report import _overview_pictures, _prepared_views, finding_markers
 
 
 def _finding(severity, where, rule="min_feature"):
@@ -30,8 +31,19 @@ def test_it_draws_both_views_with_markers(make_part):
     box = trimesh.creation.box(extents=(4, 4, 1))
     box.apply_translation((2, 2, 0.5))
     stack = LayerStack.from_masks([np.ones((40, 40), bool)] * 10, pixel_mm=0.1, layer_height_mm=0.1)
-    figures = _overview_pictures(stack, make_part(box), [_finding("blocker", (2.0, 2.0, 1.0))])
+    part = make_part(box)
+    prepared, drawn = _prepared_views(part, stack)
+    findings = [_finding("blocker", (2.0, 2.0, 1.0))]
+    figures = _overview_pictures(drawn, findings)
     assert set(figures) == {"thickness_map.png", "perspective.png"}
     for png in figures.values():
         rgb = np.asarray(Image.open(io.BytesIO(png)).convert("RGB")).astype(int)
         assert np.all(np.abs(rgb - np.array(SEVERITY_RGB["blocker"])) <= 12, axis=-1).sum() > 50
+    # Drawn before the findings are known (beside the rules) and marked after, the pictures are those drawn in one go.
+    markers = finding_markers(findings)
+    thick = stack.thickness_mm
+    assert figures["thickness_map.png"] == pictures.map_png(
+        thick, pixel_mm=0.1, unit="mm", mask=thick > 0, markers=markers, origin_mm=stack.origin_mm[:2],
+        title="As-printed thickness, seen from above (+z)")
+    assert figures["perspective.png"] == pictures.perspective_png(
+        prepared.vertices_mm, prepared.faces, markers=markers, title="The part as built, in perspective (build plate below)")
