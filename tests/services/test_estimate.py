@@ -197,6 +197,12 @@ def test_support_volume_uses_the_density_factor_or_the_rules_volume():
     ruled = estimate_print(stack=stack, part=_part(1.0), printer=printer, material=material, support_volume_mm3=2.0)
     assert ruled.support_volume_ml == pytest.approx(0.125 * 2.0 / 1000, rel=1e-12)
     assert ruled.support_source == "rules"
+    # The rules finding nothing to support: no support in any layer, the projection not made (it would only be
+    # scaled to zero), and the same estimate as scaling it.
+    none = estimate_print(stack=stack, part=_part(1.0), printer=printer, material=material, support_volume_mm3=0.0)
+    loads, source = layer_loads(stack, printer, 0.0)
+    assert source == "rules" and none.support_volume_ml == 0.0 and not loads.support_area_mm2.any()
+    assert loads.support_area_mm2.shape == (stack.count,)
 
 
 def test_material_mass_is_density_times_volume():
