@@ -130,11 +130,14 @@ def _shrunk(values: np.ndarray, mask: np.ndarray | None, max_px: int):
     if factor <= 1:
         return values, mask, 1.0
     size = (max(1, round(values.shape[1] / factor)), max(1, round(values.shape[0] / factor)))
-    filled = np.where(np.isfinite(values), values, 0.0).astype(np.float32)
+    # One float32 copy of the frame at a time (the map is now coloured while the rules run, beside their own).
+    filled = np.where(np.isfinite(values), values, np.float32(0.0)).astype(np.float32, copy=False)
     if mask is None:
         return cv2.resize(filled, size, interpolation=cv2.INTER_AREA), None, values.shape[1] / size[0]
+    filled[~mask] = 0.0
+    summed = cv2.resize(filled, size, interpolation=cv2.INTER_AREA)
+    del filled
     cover = cv2.resize(mask.astype(np.float32), size, interpolation=cv2.INTER_AREA)
-    summed = cv2.resize(np.where(mask, filled, 0.0).astype(np.float32), size, interpolation=cv2.INTER_AREA)
     # Mean over the solid part of each block, so a rim block is not darkened by the void around it.
     small = np.divide(summed, cover, out=np.zeros_like(summed), where=cover > 0)
     return small, cover >= 0.5, values.shape[1] / size[0]
