@@ -113,7 +113,8 @@ def map_drawn(values: np.ndarray, *, pixel_mm: float, unit: str, title: str, mas
     px_per_mm = scale / pixel_mm
 
     def to_px(xyz_mm: np.ndarray) -> tuple[float, float]:
-        return (pad + (xyz_mm[0] - origin_mm[0]) * px_per_mm, pad + 22 + img.height - (xyz_mm[1] - origin_mm[1]) * px_per_mm)
+        return (pad + (xyz_mm[0] - origin_mm[0]) * px_per_mm,
+                pad + 22 + img.height - (xyz_mm[1] - origin_mm[1]) * px_per_mm)
 
     return Drawn(canvas, to_px)
 

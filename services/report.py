@@ -112,7 +112,7 @@ def build_report(*, part: Part, printer: PrinterProfile, material: Material,
     release_free_heap()  # what the slicing's threads freed, before the rules and optics allocate beside each other
     fit_findings, build = check_build_fit(oriented, printer)
     solid = _has_solid(stack)
-    rules, estimate, optics, prepared = _rules_estimate_optics(
+    rules, estimate, optics, (prepared, drawn) = _rules_estimate_optics(
         stages, part=part, oriented=oriented, stack=stack, printer=printer, material=material, settings=settings,
         calibration=calibration, concurrent=concurrent_stages and solid)
     figures = {**rules.figures, **(optics.figures if optics else {})}
@@ -126,7 +126,6 @@ def build_report(*, part: Part, printer: PrinterProfile, material: Material,
                                          "optics": optics.to_dict() if optics else None,
                                          "build": {**build, **rules.summary}})
     findings = [*map(_finite_finding, findings), *_blanked_findings(part.name, blanked)]
-    prepared, drawn = prepared
     overview, view = stages.run("pictures", lambda p: (_overview_pictures(drawn, findings),
                                                        part_view_json(oriented, stack, findings, prepared)))
     figures.update(overview)
@@ -156,8 +155,9 @@ def build_report(*, part: Part, printer: PrinterProfile, material: Material,
 
 def _rules_estimate_optics(stages: Stages, *, part, oriented, stack, printer, material, settings, calibration,
                            concurrent: bool):
-    """Return (rules, estimate, optics, (prepared views, pictures drawn up to their markers)): rules then estimate (it needs their support volume),
-    optics beside them, and the finding-free half of the pictures in whichever branch ends its own work first.
+    """Return (rules, estimate, optics, (prepared views, pictures drawn up to their markers)): rules then estimate
+    (it needs their support volume), optics beside them, and the finding-free half of the pictures in whichever
+    branch ends its own work first.
 
     Both branches only read the stack and the part. Whether run side by side or in order, the
     outcome is the same, errors included (see Stages.side_by_side).

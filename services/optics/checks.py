@@ -72,7 +72,8 @@ def strehl_above_one_finding(freqs_ghz: np.ndarray, strehl: np.ndarray, best_foc
         return None
     i = int(above[np.argmax(np.asarray(strehl)[above])])
     if above.size == 1:
-        where = f"The Strehl ratio reads {strehl[i]:.2f} at {freqs_ghz[i]:g} GHz, above 1: the beam's on-axis peak lies "
+        where = (f"The Strehl ratio reads {strehl[i]:.2f} at {freqs_ghz[i]:g} GHz, above 1: the beam's on-axis peak "
+                 "lies ")
     else:
         at = ", ".join(f"{freqs_ghz[k]:g} GHz ({strehl[k]:.2f})" for k in above)
         where = f"The Strehl ratio reads above 1 at {at}: at {freqs_ghz[i]:g} GHz the beam's on-axis peak lies "

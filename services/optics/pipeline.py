@@ -223,9 +223,9 @@ def _findings(err: checks.PhaseError, rf: RFValues, period: tuple[float, str] | 
               settings: OpticsSettings, focus: list | None) -> list[Finding]:
     found = [checks.phase_error_finding(err, rf.freqs_ghz, settings.phase_error_blocker_strehl)]
     if focus is not None:
-        found.append(checks.strehl_above_one_finding(rf.freqs_ghz, *(np.array([getattr(m, key) for m in focus]) for key in
-                                                                     ("strehl", "best_focus_mm", "wavefront_focus_mm",
-                                                                      "ideal_peak_mm"))))
+        read = (np.array([getattr(m, key) for m in focus])
+                for key in ("strehl", "best_focus_mm", "wavefront_focus_mm", "ideal_peak_mm"))
+        found.append(checks.strehl_above_one_finding(rf.freqs_ghz, *read))
     if period is not None:
         i = int(np.argmax(rf.freqs_ghz))
         # Normal incidence: the Gaussian beam has its waist (a flat phase front) on the input face.
@@ -364,9 +364,6 @@ def _band(models: dict, printer: PrinterProfile) -> dict:
 
 
 def _figures(rf: RFValues, printed: _Model, design: _Model, passes: list[_Pass]) -> dict[str, bytes]:
-    spill = _spillover_db(rf, passes)
-    p = printed.losses.to_dict(spill)
-    d = design.losses.to_dict(spill)
     mid = len(rf.freqs_ghz) // 2
     run = _pass_of(passes, mid, rf)
     local = int(np.flatnonzero(run.plan.index == mid)[0])
@@ -380,12 +377,14 @@ def _figures(rf: RFValues, printed: _Model, design: _Model, passes: list[_Pass])
             grid.cell_mm, float(rf.freqs_ghz[mid])),
     }
     if sweep:
+        spill = _spillover_db(rf, passes)
+        p, d = printed.losses.to_dict(spill), design.losses.to_dict(spill)
         out["optics_loss.png"] = figures.loss_png(rf.freqs_ghz, p["absorption_db"], p["reflection_db"],
                                                   p["spillover_db"], d["transmission_loss_db"])
-    if printed.focus is not None:
-        if sweep:
+        if printed.focus is not None:
             out["optics_fwhm.png"] = figures.fwhm_png(rf.freqs_ghz, [m.fwhm_mm for m in printed.focus],
                                                       [m.diffraction_limited_fwhm_mm for m in printed.focus])
+    if printed.focus is not None:
         m = printed.focus[mid]
         out["optics_focal_plane.png"] = figures.focal_plane_png(
             np.abs(m.spot.field) ** 2, np.abs(m.ideal.field) ** 2, grid.cell_mm, m.spot.peak_index,
