@@ -363,6 +363,10 @@ class MeasureForm(forms.Form):
             self.fields[f"thickness_mm_{i}"] = forms.FloatField(required=False, label=f"Sample {i} thickness, mm",
                                                                 widget=forms.NumberInput(attrs={"step": "any"}))
 
+    def samples(self) -> list[tuple[forms.BoundField, forms.BoundField]]:
+        """Return each sample's (file, thickness) fields, so the page lays one sample to a row."""
+        return [(self[f"file_{i}"], self[f"thickness_mm_{i}"]) for i in range(1, MEASURE_FILES + 1)]
+
     def clean(self):
         data = super().clean()
         pairs = []

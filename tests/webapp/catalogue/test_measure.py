@@ -66,3 +66,18 @@ def test_the_measure_page_opens_from_the_material_page(bob_client, resin):
     assert reverse("catalogue:material_measure", args=[resin.slug]) in detail
     page = bob_client.get(reverse("catalogue:material_measure", args=[resin.slug]))
     assert page.status_code == 200 and "Sample 1, .s2p file" in page.content.decode()
+
+
+def test_each_sample_is_one_row_with_its_file_and_its_thickness(bob_client, resin):
+    """The page lays a sample's file beside its own thickness (a plain grid put sample 2's file beside sample 1's
+    thickness), and the symbols in the RF table's head are not upper-cased (tan δ is not tan Δ)."""
+    import re
+
+    page = bob_client.get(reverse("catalogue:material_measure", args=[resin.slug])).content.decode()
+    rows = re.findall(r'<div class="sample-row">(.*?)</div>\s*</div>', page, flags=re.S)
+    assert len(rows) == 4
+    for i, row in enumerate(rows, start=1):
+        assert f'name="file_{i}"' in row and f'name="thickness_mm_{i}"' in row
+        assert "file_" + str(i + 1) not in row
+    detail = bob_client.get(reverse("catalogue:material_detail", args=[resin.slug])).content.decode()
+    assert '<th scope="col" class="num symbol">tan δ</th>' in detail
