@@ -9,7 +9,6 @@ from services import catalogue
 from services.components import KINDS, build_component
 from services.components.base import smallest_printable_mm
 from services.components.multilevel import printable_rings
-from services.components.spiral import centre_fill_radius_mm
 from services.errors import UnusableInput
 from services.profiles import check_pairing
 from services.layers import build_layer_stack
@@ -31,16 +30,33 @@ def test_rings_narrower_than_the_printer_join_the_ring_inside():
     assert same[2] == 0 and np.array_equal(same[0], edges)
 
 
-def test_the_spiral_centre_is_filled_where_its_sectors_are_too_narrow():
-    """A continuous ramp's narrowest sector is one layer's rise: 2 pi dz / total radians; the pin's radius is
-    the printer's smallest wall or gap over that angle (arc length s = r theta)."""
+@pytest.mark.parametrize(("charge", "steps"), [(1, 0), (2, 0), (1, 8)])
+def test_the_spiral_is_held_between_a_and_total_less_a_near_its_axis_and_prints(charge, steps):
+    """Each layer of a spiral is a sector; where r 2 pi z / total < s (the printer's smallest wall or gap, arc
+    length s = r theta) the void low down and the solid high up are too narrow. The generator holds the ramp's
+    height over the base between a(r) = s total / (2 pi r) and total - a(r): every top vertex within that band,
+    the ramp untouched where a(r) is below half a layer, and the rules find no narrow wall or gap."""
     printer = PRINTERS["bay1-lcd-resin"]
-    smallest = smallest_printable_mm(printer)
-    total = 3.0
-    r = centre_fill_radius_mm(printer, total, 0, 15.0)
-    assert r == pytest.approx(smallest / (2 * math.pi * printer.layer_height_mm / total))
-    assert centre_fill_radius_mm(printer, total, 8, 15.0) == pytest.approx(smallest / (2 * math.pi / 8))
-    assert centre_fill_radius_mm(None, total, 8, 15.0) == 0.0
+    component = build_component("spiral", {"charge": charge, "steps": steps}, material=catalogue.material("standard-resin"),
+                                printer=printer)
+    part, derived = component.part, component.derived
+    base, total = component.to_dict()["parameters"]["base_thickness_mm"], derived["total_step_mm"]
+    s = smallest_printable_mm(printer)
+    v = part.vertices_mm
+    lo, hi = v.min(axis=0), v.max(axis=0)
+    r = np.hypot(v[:, 0] - (lo[0] + hi[0]) / 2, v[:, 1] - (lo[1] + hi[1]) / 2)
+    top = v[:, 2] > base / 2  # not the bottom face's
+    band = top & (r > derived["flat_core_radius_mm"] / 2) & (r <= 2 * s * total / (2 * math.pi * printer.layer_height_mm))
+    a = s * total / (2 * math.pi * r[band])  # the apex on the axis is at half the rise, inside the band
+    assert np.all(v[band, 2] >= base + np.minimum(a, total / 2) - 1e-6)
+    assert np.all(v[band, 2] <= base + total - np.minimum(a, total / 2) + 1e-6)
+    assert derived["clamped_within_mm"] == pytest.approx(s * total / (2 * math.pi * printer.layer_height_mm))
+    # Past where a(r) is half a layer the full ramp is kept: its lowest and highest heights are on the rim.
+    rim = top & (r > 0.99 * r.max())
+    assert v[rim, 2].min() == pytest.approx(base, abs=1e-6)
+    assert v[rim, 2].max() == pytest.approx(base + total * (1 if steps == 0 else (steps - 1) / steps), abs=1e-3)
+    narrow = [f for f in _printability_findings(part, printer) if f.rule in ("min_gap", "min_feature", "min_hole")]
+    assert not narrow, [f.message for f in narrow]
 
 
 def _pairs():
