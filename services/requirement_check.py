@@ -185,7 +185,9 @@ def _mode_purity(optics: dict) -> tuple[_Series | None, str | None]:
         "mode_purity", vortex.get("as_designed_mode_purity", (optics.get("as_designed") or {}).get("mode_purity")))
     if printed is None or designed is None:
         return None, "the optics section carries no vortex mode purity for this part"
-    return _Series(np.atleast_1d(np.array(designed, float)), np.atleast_1d(np.array(printed, float)), {},
+    variants = (optics.get("tolerance") or {}).get("variants") or {}
+    return _Series(np.atleast_1d(np.array(designed, float)), np.atleast_1d(np.array(printed, float)),
+                   {v: np.array(vals["mode_purity"], float) for v, vals in variants.items() if "mode_purity" in vals},
                    np.array(optics["frequencies_ghz"], float)[:len(np.atleast_1d(printed))]), None
 
 

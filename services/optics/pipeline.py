@@ -20,7 +20,7 @@ from services.optics.illumination import Illumination, illumination_for
 from services.optics.materials import RULE_SENTENCE, RFValues, design_freqs_ghz, rf_values, wavelength_mm
 from services.optics.multislice import Beam
 from services.optics.plan import Plan, frequency_plans
-from services.optics.vortex import SpiralPlate, spiral_plate, vortex_dict, vortex_metrics
+from services.optics.vortex import SpiralPlate, mode_spectrum, spiral_plate, vortex_dict, vortex_metrics
 from services.optics.touchstone import touchstone_s2p
 from services.optics.transmission import CellSParams, Variant, cell_sparams
 from services.part import Part
@@ -70,7 +70,8 @@ class _Model:
     sparams: CellSParams | None
     losses: object
     focus: list | None
-    vortex: list | None = None
+    vortex: list | None = None   # a spiral's vortex per frequency (the nominal print and the design)
+    purity: list | None = None   # a spiral's mode purity per frequency (every model, the tolerance variants too)
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -154,8 +155,10 @@ def _merged(models: list[_Model], order: np.ndarray) -> _Model:
     losses = Losses(*(joined(name) for name in ("transmission", "reflection", "s11", "s21", "s22")))
     focus = None if models[0].focus is None else [f for m in models for f in m.focus]
     vortex = None if models[0].vortex is None else [v for m in models for v in m.vortex]
+    purity = None if models[0].purity is None else [v for m in models for v in m.purity]
     return _Model(None, losses, None if focus is None else [focus[i] for i in order],
-                  None if vortex is None else [vortex[i] for i in order])
+                  None if vortex is None else [vortex[i] for i in order],
+                  None if purity is None else [purity[i] for i in order])
 
 
 def _not_computed(part: Part, grid: CellGrid, freq_note: str | None) -> OpticsResult:
@@ -193,7 +196,9 @@ def _evaluate(sp: CellSParams, illum: Illumination, rf: RFValues, settings: Opti
               axis_index: tuple[int, int], plate: SpiralPlate | None, vortex: bool) -> _Model:
     """Return the model's losses and its focus, or for a spiral plate its vortex (``vortex``: measure it here)."""
     if plate is not None:
-        return _Model(sp, losses(sp, illum), None, _vortex(sp, illum, rf, settings, axis_index, plate) if vortex else None)
+        purity = [mode_spectrum(field, illum.cell_mm, axis_index).get(plate.charge, 0.0) for field in sp.exit_field]
+        return _Model(sp, losses(sp, illum), None, _vortex(sp, illum, rf, settings, axis_index, plate) if vortex else None,
+                      purity)
     focus = None
     if settings.focal_length_mm is not None:
         depth = surface_depth_mm(sp, illum)
@@ -346,6 +351,8 @@ def _band(models: dict, printer: PrinterProfile) -> dict:
             out["fwhm_mm"] = np.array([np.mean(m.fwhm_mm) for m in model.focus])
             out["design_plane_fwhm_ratio"] = np.array([design_plane_ratio(m) for m in model.focus])
             out["focusing_efficiency"] = np.array([m.focusing_efficiency for m in model.focus])
+        if model.purity is not None:
+            out["mode_purity"] = np.array(model.purity)
         return out
 
     per = {name: values(model) for name, model in models.items()}

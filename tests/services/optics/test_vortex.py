@@ -96,9 +96,16 @@ def test_a_mode_purity_requirement_reads_the_vortex_section():
     from services.requirements import Requirements
 
     d = vortex_section(spiral(1, 4))
-    status = {target: check_requirements(Requirements(min_mode_purity=target), optics=d,
-                                         bbox_mm=(30.0, 30.0, 3.0)).outcomes[0].status for target in (0.75, 0.9)}
-    assert status[0.75] == "met" and status[0.9] != "met"
+    outcomes = {target: check_requirements(Requirements(min_mode_purity=target), optics=d,
+                                           bbox_mm=(30.0, 30.0, 3.0)).outcomes[0] for target in (0.75, 0.9)}
+    assert outcomes[0.75].status == "met" and outcomes[0.9].status != "met"
+    # Judged across the printer's tolerance band too, as every other target: the print grown, shrunk,
+    # stretched and squashed each has its own purity, and the worst of them is named.
+    variants = d["tolerance"]["variants"]
+    assert set(variants) == {"xy_grown", "xy_shrunk", "z_stretched", "z_squashed"}
+    worst = min(v["mode_purity"][0] for v in variants.values())
+    assert outcomes[0.75].tolerance_worst == pytest.approx(worst) and outcomes[0.75].tolerance_variant in variants
+    assert d["tolerance"]["band"]["mode_purity"]["min"][0] <= d["vortex"]["as_printed"]["mode_purity"][0]
 
 
 @pytest.mark.parametrize("charge", [1, 2])
