@@ -253,9 +253,7 @@ def _no_solid_note(part: Part, printer: PrinterProfile) -> Finding:
 
 def _units_from_physics(part: Part, printer: PrinterProfile, settings: CheckSettings) -> list[Finding]:
     """Return a units caution when the part's size makes no sense at its design frequency."""
-    freqs = settings.effective_optics().freqs_ghz
-    if not freqs and (part.parameters or {}).get("freq_ghz"):
-        freqs = (float(part.parameters["freq_ghz"]),)
+    freqs = settings.effective_optics(part.parameters).freqs_ghz
     return units_findings(extent_mm=max(part.bbox_mm), unit=part.units, freqs_ghz=freqs,
                           build_volume_mm=printer.build_volume_mm)
 
@@ -272,7 +270,8 @@ def _optics(part, stack, printer, material, settings, progress=None, with_figure
     from services.optics import optics_report
 
     return optics_report(part=part, printed=stack, material=material, printer=printer,
-                         settings=settings.effective_optics(), progress=progress, with_figures=with_figures)
+                         settings=settings.effective_optics(part.parameters), progress=progress,
+                         with_figures=with_figures)
 
 
 def _prepared_views(oriented, stack) -> tuple[PreparedViews, dict[str, pictures.Drawn]]:

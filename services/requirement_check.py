@@ -16,7 +16,7 @@ from services.findings import Finding
 from services.numbers_text import significant
 from services.requirements import LABELS, Requirements
 
-MEETS = ("yes", "no", "not_stated")
+MEETS = ("yes", "no", "not_evaluated", "not_stated")
 SEVERITY = {"missed": "blocker", "lost_in_printing": "blocker", "not_evaluated": "caution", "met": "note"}
 
 
@@ -43,7 +43,8 @@ class Outcome:
 
 @dataclass(frozen=True, slots=True)
 class RequirementCheck:
-    """The outcomes, their findings and ``meets``: yes | no | not_stated."""
+    """The outcomes, their findings and ``meets``: yes | no | not_evaluated (none missed, some not judged: a
+    target that does not apply to the part, or a quantity the check did not compute) | not_stated."""
 
     meets: str
     outcomes: tuple[Outcome, ...] = ()
@@ -76,7 +77,8 @@ def check_requirements(requirements: Requirements | None, *, optics: dict | None
         return RequirementCheck("not_stated", requirements=requirements)
     outcomes = [*_optics_outcomes(requirements, optics), *_geometry_outcomes(requirements, optics, bbox_mm,
                                                                             printed_thickness_mm)]
-    meets = "yes" if all(o.status == "met" for o in outcomes) else "no"
+    statuses = {o.status for o in outcomes}
+    meets = "yes" if statuses <= {"met"} else "not_evaluated" if statuses <= {"met", "not_evaluated"} else "no"
     return RequirementCheck(meets, tuple(outcomes), tuple(_finding(o) for o in outcomes), requirements)
 
 

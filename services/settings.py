@@ -68,13 +68,16 @@ class CheckSettings:
             d["requirements"] = self.requirements.to_dict()
         return d
 
-    def effective_optics(self) -> OpticsSettings:
-        """Return the optics settings with the requirements' band and focal length filling what is empty."""
+    def effective_optics(self, parameters: dict | None = None) -> OpticsSettings:
+        """Return the optics settings with what is empty filled: first from a parametric part's own design
+        (``parameters``: its frequency or band, its focal length), then from the requirements' band and focal
+        length. Every way in (the site, the API, the command line, a re-check) gets the same optics for the same
+        design and settings."""
         req, optics = self.requirements, self.optics
-        if req is None:
-            return optics
-        freqs = optics.freqs_ghz or req.band_freqs_ghz()
-        focal = optics.focal_length_mm if optics.focal_length_mm is not None else req.focal_length_mm
+        own_freqs, own_focal = own_design(parameters)
+        freqs = optics.freqs_ghz or own_freqs or (req.band_freqs_ghz() if req is not None else ())
+        focal = next((f for f in (optics.focal_length_mm, own_focal, req.focal_length_mm if req is not None else None)
+                      if f is not None), None)
         return replace(optics, freqs_ghz=tuple(freqs), focal_length_mm=focal)
 
     @classmethod
@@ -88,3 +91,18 @@ class CheckSettings:
             optics=OpticsSettings(**optics),
             requirements=Requirements.from_dict(data["requirements"]) if data.get("requirements") else None,
         )
+
+
+def own_design(parameters: dict | None) -> tuple[tuple[float, ...], float | None]:
+    """Return a parametric part's own design frequencies (its frequency, or five across its band) and focal length
+    (None where it has none: a spiral plate, a window); ((), None) for an uploaded mesh."""
+    p = parameters or {}
+    if p.get("freq_ghz"):
+        freqs = (float(p["freq_ghz"]),)
+    elif p.get("freq_min_ghz") and p.get("freq_max_ghz"):
+        lo, hi = float(p["freq_min_ghz"]), float(p["freq_max_ghz"])
+        freqs = tuple(round(lo + i * (hi - lo) / 4, 6) for i in range(5))
+    else:
+        freqs = ()
+    focal = p.get("focal_length_mm")
+    return freqs, None if focal is None else float(focal)

@@ -81,14 +81,10 @@ def cmd_generate(args) -> int:
 def _check_settings(args, component):
     """Return check settings whose optics look at the part's own design frequency (or band) and focus."""
     from services.cli.requirements import requirements_from
-    from services.settings import CheckSettings, OpticsSettings
+    from services.settings import CheckSettings, OpticsSettings, own_design
 
     params = component.part.parameters or {}
-    if params.get("freq_ghz"):
-        freqs = (float(params["freq_ghz"]),)
-    else:
-        lo, hi = float(params["freq_min_ghz"]), float(params["freq_max_ghz"])
-        freqs = tuple(round(lo + i * (hi - lo) / 4, 6) for i in range(5))
+    freqs, _ = own_design(params)
     optics = OpticsSettings(freqs_ghz=freqs, focal_length_mm=component.focal_length_mm,
                             edge_taper_db=args.edge_taper_db, beam_waist_mm=args.beam_waist_mm)
     return CheckSettings(orientation=args.orientation, quantities=tuple(args.quantity or (1, 5, 10, 25)), optics=optics,

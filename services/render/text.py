@@ -7,7 +7,7 @@ from services.numbers_text import significant
 from services.render.tables import finding_badge
 
 
-MEETS_WORDS = {"yes": "yes", "no": "NO", "not_stated": "none stated"}
+MEETS_WORDS = {"yes": "yes", "no": "NO", "not_evaluated": "not all evaluated", "not_stated": "none stated"}
 
 
 def report_text(r: dict) -> str:

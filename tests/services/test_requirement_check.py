@@ -131,7 +131,22 @@ def test_optics_not_computed_leave_optical_targets_unevaluated_with_the_reason()
     out = check_requirements(Requirements(min_strehl=0.8), bbox_mm=BBOX,
                              optics={"not_computed": "No clear aperture.", "frequency_note": None})
     (outcome,) = out.outcomes
-    assert outcome.status == "not_evaluated" and "No clear aperture" in outcome.why and out.meets == "no"
+    # Nothing missed, nothing judged: not a "no" (the part may well meet it), and not a "yes".
+    assert outcome.status == "not_evaluated" and "No clear aperture" in outcome.why and out.meets == "not_evaluated"
+
+
+def test_meets_says_no_only_for_a_missed_target_and_not_evaluated_where_one_could_not_be_judged():
+    """A vortex purity target on a part with no vortex, beside a met thickness target: not all evaluated, and the
+    page says so in words; with a missed target beside it the answer is no."""
+    from services.render.tables import meets_label
+
+    optics = _optics(designed=[0.9], printed=[0.9], stretched=[0.9])
+    met_and_unjudged = check_requirements(Requirements(max_thickness_mm=5, min_mode_purity=0.9), optics=optics,
+                                          bbox_mm=BBOX)
+    assert sorted(o.status for o in met_and_unjudged.outcomes) == ["met", "not_evaluated"]
+    assert met_and_unjudged.meets == "not_evaluated" and meets_label("not_evaluated") == "Requirements not all evaluated"
+    missed_too = check_requirements(Requirements(max_diameter_mm=1, min_mode_purity=0.9), optics=optics, bbox_mm=BBOX)
+    assert missed_too.meets == "no"
 
 
 def test_a_strehl_ratio_that_measures_nothing_is_not_judged():

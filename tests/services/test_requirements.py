@@ -41,6 +41,39 @@ def test_the_band_and_focal_length_fill_empty_optics_settings():
     assert given.effective_optics().freqs_ghz == (140.0,) and given.effective_optics().focal_length_mm == 70
 
 
+def test_a_parametric_parts_own_design_fills_empty_optics_settings_before_the_requirements():
+    """A generated part's own frequency (or five across its band) and focal length fill what the settings leave
+    empty, before the requirements' band: a design checked through the API, or uploaded again as the same bytes,
+    gets the optics the site's form gives it. Given values still win; an uploaded mesh has no design of its own."""
+    req = Requirements(band_ghz=(130, 150), focal_length_mm=72, focal_tolerance_mm=2)
+    spiral = {"kind": "spiral", "freq_ghz": 150.0, "charge": 1}
+    zoned = {"kind": "zoned", "freq_ghz": 140.0, "focal_length_mm": 72.0}
+    window = {"kind": "window", "freq_min_ghz": 130.0, "freq_max_ghz": 150.0}
+    plain = CheckSettings()
+    assert plain.effective_optics(spiral).freqs_ghz == (150.0,) and plain.effective_optics(spiral).focal_length_mm is None
+    assert plain.effective_optics(zoned).focal_length_mm == 72.0
+    assert plain.effective_optics(window).freqs_ghz == (130.0, 135.0, 140.0, 145.0, 150.0)
+    assert plain.effective_optics(None).freqs_ghz == ()
+    assert CheckSettings(requirements=req).effective_optics(spiral).freqs_ghz == (150.0,)
+    assert CheckSettings(requirements=req).effective_optics(spiral).focal_length_mm == 72
+    given = CheckSettings(optics=OpticsSettings(freqs_ghz=(140.0,), focal_length_mm=70))
+    assert given.effective_optics(zoned).freqs_ghz == (140.0,) and given.effective_optics(zoned).focal_length_mm == 70
+
+
+def test_a_generated_part_checked_with_empty_settings_is_seen_at_its_own_frequency():
+    """build_report (every way in: site, API, command line) reads a spiral plate for 150 GHz at 150 GHz, not at
+    the material's band (75-110 GHz for the starter resin, where the plate is a half-turn vortex)."""
+    from services import catalogue
+    from services.components import build_component
+    from services.report import build_report
+
+    resin, bay1 = catalogue.material("standard-resin"), catalogue.printer("bay1-lcd-resin")
+    part = build_component("spiral", {"diameter_mm": 12.0}, material=resin, printer=bay1).part
+    report = build_report(part=part, printer=bay1, material=resin, settings=CheckSettings()).to_dict()
+    assert report["optics"]["frequencies_ghz"] == [150.0]
+    assert report["optics"]["vortex"]["as_printed"]["mode_purity"][0] > 0.85
+
+
 def test_settings_without_requirements_serialise_as_before():
     """Stored settings from before requirements existed still compare equal (the API reuses matching checks)."""
     assert "requirements" not in CheckSettings().to_dict()

@@ -18,7 +18,7 @@ Orientation = Literal[ORIENTATIONS]  # type: ignore[valid-type]
 Kind = Literal[KINDS]  # type: ignore[valid-type]
 CheckStatus = Literal["queued", "running", "done", "failed", "cancelled"]
 Verdict = Literal["printable", "printable_with_cautions", "not_printable"]
-Meets = Literal["yes", "no", "not_stated"]
+Meets = Literal["yes", "no", "not_evaluated", "not_stated"]
 Quantity = Annotated[int, Field(ge=1, le=100_000)]
 FreqGhz = Annotated[float, Field(gt=0, le=10_000)]
 
@@ -134,7 +134,8 @@ class CheckIn(StrictIn):
 
 class SummaryOut(Schema):
     verdict: Verdict
-    meets_requirements: Meets = Field(description="yes | no against the stated requirements; not_stated")
+    meets_requirements: Meets = Field(description="yes | no against the stated requirements; not_evaluated (none "
+                                                  "missed, some could not be judged); not_stated")
     blockers: int
     cautions: int
     notes: int
@@ -163,8 +164,8 @@ class CheckOut(Schema):
     progress: float = Field(description="0 to 1")
     attempts: int
     verdict: Verdict | None
-    meets_requirements: Meets | None = Field(description="once done: yes | no | not_stated (kept apart from the "
-                                                         "verdict, which speaks only of printability)")
+    meets_requirements: Meets | None = Field(description="once done: yes | no | not_evaluated | not_stated (kept apart "
+                                                         "from the verdict, which speaks only of printability)")
     error_code: str | None
     error: str | None
     created_at: datetime

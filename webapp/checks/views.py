@@ -128,13 +128,11 @@ def _own_optics(check_settings, component):
     """Fill empty frequencies and focal length from the generated part (its design frequency or band)."""
     from dataclasses import replace
 
-    params, optics = component.part.parameters or {}, check_settings.optics
-    freqs = optics.freqs_ghz
-    if not freqs and params.get("freq_ghz"):
-        freqs = (float(params["freq_ghz"]),)
-    elif not freqs and params.get("freq_min_ghz"):
-        lo, hi = float(params["freq_min_ghz"]), float(params["freq_max_ghz"])
-        freqs = tuple(round(lo + i * (hi - lo) / 4, 6) for i in range(5))
+    from services.settings import own_design
+
+    optics = check_settings.optics
+    own_freqs, _ = own_design(component.part.parameters)
+    freqs = optics.freqs_ghz or own_freqs
     focal = optics.focal_length_mm if optics.focal_length_mm is not None else component.focal_length_mm
     return replace(check_settings, optics=replace(optics, freqs_ghz=freqs, focal_length_mm=focal))
 
