@@ -475,7 +475,7 @@ def write_summary(rows: list[Row], out: Path) -> None:
 
 def format_table(rows: list[Row], *, width: int = 36) -> str:
     """Return a short plain-text table of the rows."""
-    lines = [f"{'file':{width}}  {'verdict':23}  {'meets':10}  {'blk':>3}  {'cau':>3}  {'ml':>8}  {'time':>8}  {'cost':>10}"]
+    lines = [f"{'file':{width}}  {'verdict':23}  {'meets':13}  {'blk':>3}  {'cau':>3}  {'ml':>8}  {'time':>8}  {'cost':>10}"]
     for r in rows:
         name = r.file if len(r.file) <= width else "…" + r.file[-(width - 1):]
         if r.error:
@@ -483,7 +483,7 @@ def format_table(rows: list[Row], *, width: int = 36) -> str:
             continue
         cost = f"{r.total_cost:,.2f}" if r.total_cost is not None else "-"
         ml = f"{r.material_ml:.2f}" if r.material_ml is not None else "-"
-        lines.append(f"{name:{width}}  {r.verdict:23}  {r.meets_requirements or '-':10}  {r.blockers:>3}  {r.cautions:>3}  {ml:>8}  "
+        lines.append(f"{name:{width}}  {r.verdict:23}  {r.meets_requirements or '-':13}  {r.blockers:>3}  {r.cautions:>3}  {ml:>8}  "
                      f"{_duration(r.print_time_s):>8}  {cost:>10}")
     return "\n".join(lines)
 

@@ -4,6 +4,7 @@ The live test against a real server and worker is tests/webapp/api/test_batch_li
 """
 
 import csv
+from dataclasses import replace
 import email.parser
 import email.policy
 import hashlib
@@ -209,6 +210,11 @@ def test_requirements_travel_with_each_check_and_come_back_as_a_column(folder, t
     assert all(c["requirements"] == {"max_thickness_mm": 1.0} for c in fake.checks.values())
     header, first = batch.format_table(rows).splitlines()[:2]
     assert header.split()[2] == "meets" and first.split()[2] == "no"
+    # The longest answer keeps the columns after it in line with their heads.
+    longest = replace(rows[0], meets_requirements="not_evaluated")
+    head, line = batch.format_table([longest]).splitlines()
+    at = head.index("blk")
+    assert line[at:at + 3].strip() == str(longest.blockers) and "not_evaluated" in line
 
 
 def test_it_retries_network_errors_and_5xx_with_growing_waits(tmp_path):
