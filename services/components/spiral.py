@@ -14,9 +14,7 @@ import numpy as np
 from services.components.base import Component, Context, finish, smallest_printable_mm
 from services.components.formulas import medium_at
 from services.components.multilevel import add_flange_ring
-from services.components.solid import (
-    CHORD_TOL_MM, check_fits, checked, from_arrays, segments_for,
-)
+from services.components.solid import CHORD_TOL_MM, check_fits, checked, from_arrays, segments_for
 from services.errors import UnusableInput
 
 # Each step's wall leans by this much at the rim, so every rim vertex has an angle of its own
@@ -50,7 +48,7 @@ def build_spiral(ctx: Context) -> Component:
         "total_step_mm": total, "full_wave_step_mm": medium.full_wave_step_mm,
         "step_height_mm": total / steps if steps else None, "max_thickness_mm": float(z.max()),
         "handedness": "counter-clockwise" if charge > 0 else "clockwise",
-        "flat_core_radius_mm": flat_core_radius_mm(smallest) if smallest > 0 else 0.0,
+        "core_radius_mm": min(core_radius_mm(smallest), radius / 2) if smallest > 0 else 0.0,
         "clamped_within_mm": clamped_within_mm(smallest, total, ctx.printer),
     }
     return finish(ctx, solid, medium, derived, focal_length_mm=None)
@@ -74,7 +72,7 @@ def clamped_solid(phi: np.ndarray, z: np.ndarray, radius: float, base: float, to
     each ring), closed to the axis by a fan from half the rise inside the flat core's radius; rings run out to
     where a(r) falls to half a layer (past it no layer's mid-plane sees the clamp), then the rim.
     """
-    core = flat_core_radius_mm(smallest)
+    core = min(core_radius_mm(smallest), radius / 2)
     reach = smallest * total / (2 * np.pi)          # a(r) = reach / r
     last = min(2 * reach / layer_mm, radius)
     count = max(2, int(np.ceil(np.log(last / core) / np.log(1 + CLAMP_RING_STEP)))) if last > core else 1
@@ -105,11 +103,11 @@ def clamped_solid(phi: np.ndarray, z: np.ndarray, radius: float, base: float, to
     return from_arrays(vertices, np.vstack(faces), "spiral phase plate")
 
 
-CLAMP_RING_STEP = 0.1  # each ring 10 % wider than the one inside it: a(r) = reach / r follows within 0.13 % of
-# itself between two rings (linear across a step q - 1 misses 1 / r by at most (q - 1)^2 / 8)
+CLAMP_RING_STEP = 0.1  # each ring 10 % wider than the one inside it: a(r) = reach / r followed within 0.25 % of
+# itself between two rings (a line across r..qr misses 1 / r by at most (q - 1)^2 / 4 of it)
 
 
-def flat_core_radius_mm(smallest_mm: float) -> float:
+def core_radius_mm(smallest_mm: float) -> float:
     """Return the radius of the clamp's innermost ring, where half a turn's sector is two smallest walls wide
     (r pi = 2 s; a(r) is a quarter of the rise there). Inside it the top is a fan to half the rise on the axis:
     under 0.1 % of a 10 dB-tapered beam 28 mm across falls inside it on a 50 um resin printer."""

@@ -46,7 +46,7 @@ def test_the_spiral_is_held_between_a_and_total_less_a_near_its_axis_and_prints(
     lo, hi = v.min(axis=0), v.max(axis=0)
     r = np.hypot(v[:, 0] - (lo[0] + hi[0]) / 2, v[:, 1] - (lo[1] + hi[1]) / 2)
     top = v[:, 2] > base / 2  # not the bottom face's
-    band = top & (r > derived["flat_core_radius_mm"] / 2) & (r <= 2 * s * total / (2 * math.pi * printer.layer_height_mm))
+    band = top & (r > derived["core_radius_mm"] / 2) & (r <= 2 * s * total / (2 * math.pi * printer.layer_height_mm))
     a = s * total / (2 * math.pi * r[band])  # the apex on the axis is at half the rise, inside the band
     assert np.all(v[band, 2] >= base + np.minimum(a, total / 2) - 1e-6)
     assert np.all(v[band, 2] <= base + total - np.minimum(a, total / 2) + 1e-6)
