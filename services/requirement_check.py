@@ -262,7 +262,8 @@ def _sentence(o: Outcome) -> str:
     want = wanted_text(o)
     at = f" at {o.freq_ghz:g} GHz" if o.freq_ghz is not None else ""
     if o.status == "not_evaluated":
-        return f"Requirement {o.label} ({want}) could not be checked: {o.why}. Counted as not met."
+        return (f"Requirement {o.label} ({want}) could not be checked: {o.why}. Not counted as met: the requirements "
+                "read \"not all evaluated\" unless another target is missed.")
     if o.status == "missed":
         return (f"Requirement {o.label} ({want}) is missed as designed: {value_text(o.as_designed, o.unit)}{at}, "
                 f"{_by(o, o.as_designed)}. "
