@@ -18,7 +18,7 @@ VERDICT_LABELS = {"printable": "Printable", "printable_with_cautions": "Printabl
 
 
 MEETS_LABELS = {"yes": "Meets its requirements", "no": "Misses its requirements",
-                "not_evaluated": "Requirements not all evaluated", "not_stated": "No requirements stated"}
+                "not_evaluated": "Not all targets evaluated", "not_stated": "No requirements stated"}
 STATUS_LABELS = {"met": "met", "missed": "missed as designed", "lost_in_printing": "lost in printing",
                  "not_evaluated": "not evaluated"}
 

@@ -144,7 +144,7 @@ def test_meets_says_no_only_for_a_missed_target_and_not_evaluated_where_one_coul
     met_and_unjudged = check_requirements(Requirements(max_thickness_mm=5, min_mode_purity=0.9), optics=optics,
                                           bbox_mm=BBOX)
     assert sorted(o.status for o in met_and_unjudged.outcomes) == ["met", "not_evaluated"]
-    assert met_and_unjudged.meets == "not_evaluated" and meets_label("not_evaluated") == "Requirements not all evaluated"
+    assert met_and_unjudged.meets == "not_evaluated" and meets_label("not_evaluated") == "Not all targets evaluated"
     (unjudged,) = [f.message for f in met_and_unjudged.findings if "could not be checked" in f.message]
     assert 'read "not all evaluated"' in unjudged and "Counted as not met" not in unjudged
     missed_too = check_requirements(Requirements(max_diameter_mm=1, min_mode_purity=0.9), optics=optics, bbox_mm=BBOX)
