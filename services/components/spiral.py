@@ -48,8 +48,8 @@ def build_spiral(ctx: Context) -> Component:
         "total_step_mm": total, "full_wave_step_mm": medium.full_wave_step_mm,
         "step_height_mm": total / steps if steps else None, "max_thickness_mm": float(z.max()),
         "handedness": "counter-clockwise" if charge > 0 else "clockwise",
-        "core_radius_mm": min(core_radius_mm(smallest), radius / 2) if smallest > 0 else 0.0,
-        "clamped_within_mm": clamped_within_mm(smallest, total, ctx.printer),
+        "core_radius_mm": core_radius_mm(smallest, radius),
+        "clamped_within_mm": clamped_within_mm(smallest, total, ctx.printer.layer_height_mm) if smallest > 0 else 0.0,
     }
     return finish(ctx, solid, medium, derived, focal_length_mm=None)
 
@@ -69,12 +69,12 @@ def clamped_solid(phi: np.ndarray, z: np.ndarray, radius: float, base: float, to
     a tenth of a 10 dB-tapered beam's power in charge 0 (tests/services/optics/test_vortex.py).
 
     The top is a height field on rings about the axis (the azimuths of ``phi``, the heights of ``z`` clamped on
-    each ring), closed to the axis by a fan from half the rise inside the flat core's radius; rings run out to
+    each ring), closed to the axis by a fan from half the rise inside the core's radius; rings run out to
     where a(r) falls to half a layer (past it no layer's mid-plane sees the clamp), then the rim.
     """
-    core = min(core_radius_mm(smallest), radius / 2)
+    core = core_radius_mm(smallest, radius)
     reach = smallest * total / (2 * np.pi)          # a(r) = reach / r
-    last = min(2 * reach / layer_mm, radius)
+    last = min(2 * clamped_within_mm(smallest, total, layer_mm), radius)  # a(r) half a layer
     count = max(2, int(np.ceil(np.log(last / core) / np.log(1 + CLAMP_RING_STEP)))) if last > core else 1
     rings = np.geomspace(core, last, count) if last > core else np.array([core])
     if rings[-1] < radius:
@@ -107,18 +107,17 @@ CLAMP_RING_STEP = 0.1  # each ring 10 % wider than the one inside it: a(r) = rea
 # itself between two rings (a line across r..qr misses 1 / r by at most (q - 1)^2 / 4 of it)
 
 
-def core_radius_mm(smallest_mm: float) -> float:
+def core_radius_mm(smallest_mm: float, radius_mm: float) -> float:
     """Return the radius of the clamp's innermost ring, where half a turn's sector is two smallest walls wide
-    (r pi = 2 s; a(r) is a quarter of the rise there). Inside it the top is a fan to half the rise on the axis:
-    under 0.1 % of a 10 dB-tapered beam 28 mm across falls inside it on a 50 um resin printer."""
-    return float(2 * smallest_mm / np.pi)
+    (r pi = 2 s; a(r) is a quarter of the rise there), at most half the plate's (0 without a printer). Inside it
+    the top is a fan to half the rise on the axis: under 0.1 % of a 10 dB-tapered beam 28 mm across falls
+    inside it on a 50 um resin printer."""
+    return float(min(2 * smallest_mm / np.pi, radius_mm / 2))
 
 
-def clamped_within_mm(smallest_mm: float, total_mm: float, printer) -> float:
-    """Return the radius out to which the clamp moves the ramp by at least one layer (0 without a printer)."""
-    if printer is None or smallest_mm <= 0:
-        return 0.0
-    return float(smallest_mm * total_mm / (2 * np.pi * printer.layer_height_mm))
+def clamped_within_mm(smallest_mm: float, total_mm: float, layer_mm: float) -> float:
+    """Return the radius out to which the clamp moves the ramp by at least one layer: a(r) = layer."""
+    return float(smallest_mm * total_mm / (2 * np.pi * layer_mm))
 
 
 def spiral_samples(radius: float, base: float, total: float, steps: int) -> tuple[np.ndarray, np.ndarray]:

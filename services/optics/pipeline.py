@@ -196,9 +196,11 @@ def _evaluate(sp: CellSParams, illum: Illumination, rf: RFValues, settings: Opti
               axis_index: tuple[int, int], plate: SpiralPlate | None, vortex: bool) -> _Model:
     """Return the model's losses and its focus, or for a spiral plate its vortex (``vortex``: measure it here)."""
     if plate is not None:
-        purity = [mode_spectrum(field, illum.cell_mm, axis_index).get(plate.charge, 0.0) for field in sp.exit_field]
-        return _Model(sp, losses(sp, illum), None, _vortex(sp, illum, rf, settings, axis_index, plate) if vortex else None,
-                      purity)
+        # The nominal print and the design get the whole vortex (its purity among it); a tolerance variant its purity.
+        metrics = _vortex(sp, illum, rf, settings, axis_index, plate) if vortex else None
+        purity = [m.purity for m in metrics] if metrics is not None else \
+            [mode_spectrum(field, illum.cell_mm, axis_index).get(plate.charge, 0.0) for field in sp.exit_field]
+        return _Model(sp, losses(sp, illum), None, metrics, purity)
     focus = None
     if settings.focal_length_mm is not None:
         depth = surface_depth_mm(sp, illum)
