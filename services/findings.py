@@ -11,7 +11,7 @@ SEVERITIES = ("blocker", "caution", "note")
 RULES = (
     "mesh_health", "units", "build_fit", "min_feature", "min_gap", "min_hole", "aspect_ratio",
     "overhang", "island", "trapped_volume", "period", "phase_error", "focus", "rf_table", "not_computed",
-    "requirement",
+    "cell_model", "requirement",
 )
 
 # Rule families that speak of the designer's targets, not of printability: kept out of the verdict.
@@ -93,7 +93,7 @@ RULE_LABELS = {
     "min_gap": "Minimum gap", "min_hole": "Minimum hole", "aspect_ratio": "Slenderness", "overhang": "Overhang",
     "island": "Island", "trapped_volume": "Trapped resin", "period": "Lattice period", "phase_error": "Phase error",
     "focus": "Focus",
-    "rf_table": "RF data range", "not_computed": "Not computed",
+    "rf_table": "RF data range", "not_computed": "Not computed", "cell_model": "Cell model",
     "requirement": "Requirement",
 }
 

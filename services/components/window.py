@@ -13,6 +13,7 @@ to a half-wave multiple, m lambda0 / (2 n), reflectionless at the band centre.
 
 from __future__ import annotations
 
+import manifold3d as m3d
 import numpy as np
 
 from services.components.base import Component, Context, finish
@@ -247,21 +248,40 @@ def _window_solid(p: dict, core: float, period: float, layer: dict):
     slab = disc(radius, core, "window", z0_mm=depth)
     if p["matching"] == "none":
         return slab
-    texture = _texture(p["matching"], radius, period, layer)
     # The texture stops short of the rim by two chord tolerances, so its cut faces never coincide
     # with the core's own rim (coincident faces leave needle triangles in a union).
-    rim = disc(radius - 2 * CHORD_TOL_MM, depth + 2 * SINK_MM, "window", z0_mm=-SINK_MM)
-    texture = intersect(texture, rim, "matching layer")
+    inner = radius - 2 * CHORD_TOL_MM
+    if p["matching"] == "grooves":
+        texture = _ridges(inner, period, layer["ridge_width_mm"], depth)
+    else:
+        rim = disc(inner, depth + 2 * SINK_MM, "window", z0_mm=-SINK_MM)
+        texture = intersect(_texture(p["matching"], radius, period, layer), rim, "matching layer")
     top = checked(texture.translate((0.0, 0.0, depth + core)), "matching layer")
     bottom = checked(texture.mirror((0.0, 0.0, 1.0)).translate((0.0, 0.0, depth)), "matching layer")
     return union([slab, top, bottom], "window")
 
 
+def _ridges(radius: float, period: float, ridge: float, depth: float):
+    """Return the groove layer's ridges standing on z = 0 (sunk SINK_MM below), each a bar ended square where its
+    outer edge meets the circle of ``radius``: a ridge cut by the circle itself would end in a sliver narrower
+    than any printer's smallest feature (a wedge where the arc crosses it at a slant, a crescent at the sides).
+    Bars shorter than they are wide are left out."""
+    count = int(np.ceil(radius / period))
+    bars = []
+    for centre in np.arange(-count, count + 1) * period:
+        outer = abs(centre) + ridge / 2
+        if outer >= radius:
+            continue
+        half = float(np.sqrt(radius**2 - outer**2))
+        if 2 * half < ridge:
+            continue
+        bar = m3d.Manifold.cube((ridge, 2 * half, depth + SINK_MM), center=True)
+        bars.append(bar.translate((float(centre), 0.0, (depth - SINK_MM) / 2)))
+    return union(bars, "grooves")
+
+
 def _texture(matching: str, radius: float, period: float, layer: dict):
-    """Return the texture standing on z = 0 (its floor reaching SINK_MM below), uncut, over the aperture."""
-    if matching == "grooves":
-        ridges = _wave(radius, period, layer["ridge_width_mm"], layer["ridge_width_mm"], layer["depth_mm"])
-        return checked(extrude_xz_profile(*ridges, 2 * radius + 2, "grooves").translate((0.0, 0.0, -SINK_MM)), "grooves")
+    """Return the pyramid texture standing on z = 0 (its floor reaching SINK_MM below), uncut, over the aperture."""
     x, z = _wave(radius, period, layer["pyramid_base_mm"], layer["pyramid_tip_mm"], layer["depth_mm"])
     # Two crossed trapezoid ridges intersect in square frustums: the pyramids.
     prism = extrude_xz_profile(x, z, 2 * radius + 2, "pyramids")

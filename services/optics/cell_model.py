@@ -14,6 +14,7 @@ from pathlib import Path
 
 import numpy as np
 
+from services.optics import lamellar
 from services.optics.cell_tables import TERMS, CellTable, TableSpec, cell_table
 from services.optics.effective_medium import DEFAULT_MODEL, effective_permittivity
 from services.optics.materials import RFValues, wavelength_mm
@@ -101,6 +102,8 @@ def declared_cell_index(params: dict, rf: RFValues, period_mm: float, *, folder:
     the same table (the same cache key) and map fills to layers the same way.
     """
     eps = _eps(rf)
+    if params.get("matching") == "grooves" and params.get("groove_field") in lamellar.POLARISATIONS:
+        return _groove_index(params["groove_field"], rf, eps, float(period_mm))
     kind, lattice = params.get("cell"), params.get("lattice")
     if kind not in ("pillar", "hole"):
         return CellIndex(eps), "effective medium: no declared lattice of round pillars or holes"
@@ -119,6 +122,16 @@ def declared_cell_index(params: dict, rf: RFValues, period_mm: float, *, folder:
     return CellIndex(eps, table=cell_table(spec, folder=folder, progress=progress)), (
         f"rigorous cell table: the generator declared a {_LATTICE_WORDS[lattice]} lattice of round "
         f"{kind}s, period {p:g} mm (p n / lambda = {pn_over_lambda:.2f})")
+
+
+def _groove_index(field: str, rf: RFValues, eps: np.ndarray, period_mm: float) -> tuple[CellIndex, str]:
+    """Return the model of a window's declared grooves: the lamellar solver's equivalent layers, and why."""
+    pn_over_lambda = period_mm * float(np.sqrt(rf.eps_r.max())) / float(wavelength_mm(rf.freqs_ghz.max()))
+    spec = lamellar.TableSpec(freqs_ghz=tuple(float(f) for f in rf.freqs_ghz), eps=tuple(complex(e) for e in eps),
+                              period_mm=period_mm, polarisation=field)
+    return CellIndex(eps, table=lamellar.groove_table(spec)), (
+        f"lamellar grating: the generator declared grooves of period {period_mm:g} mm with the electric field "
+        f"{field} them (p n / lambda = {pn_over_lambda:.2f})")
 
 
 def _eps(rf: RFValues) -> np.ndarray:

@@ -9,7 +9,7 @@ import numpy as np
 
 from services.findings import Finding
 from services.layers import LayerStack
-from services.optics import checks, figures, grids
+from services.optics import checks, figures, grids, grooves
 from services.optics.cell_model import cell_index_for
 from services.optics.cells import CellGrid, cell_coverage
 from services.optics.effective_medium import DEFAULT_MODEL
@@ -119,6 +119,12 @@ def optics_report(*, part: Part, printed: LayerStack, material: Material, printe
     section = _section(rf, freq_note, models, design_model, passes, err, printer, settings, plate)
     section["analysis"]["lattice_period_mm"] = None if period is None else {"value": period[0], "how": period[1]}
     section["analysis"]["cell_model"] = {**cells.to_dict(), "why": cells_why}
+    if grooves.declared_grooves(part.parameters):
+        whole = grooves.whole_window(part.parameters, rf, section["as_designed"])
+        section["analysis"]["grooves_whole_window"] = whole
+        sentence = grooves.note_sentence(part.name, whole, rf.freqs_ghz)
+        if sentence:
+            findings.append(Finding(rule="cell_model", severity="note", message=sentence))
     result = OpticsResult(section, findings, _figures(rf, models["nominal"], design_model, passes) if with_figures else {},
                           touchstone_s2p(rf.freqs_ghz, *_weighted_s(models["nominal"]), name=part.name))
     tick(1.0)

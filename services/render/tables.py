@@ -67,6 +67,7 @@ def optics_rows(optics: dict | None) -> list[dict]:
         return []
     designed = optics.get("as_designed") or {}
     phase = optics.get("phase_error") or {}
+    whole = (optics.get("analysis") or {}).get("grooves_whole_window")
     rows = []
     for i, freq in enumerate(optics.get("frequencies_ghz") or []):
         rows.append({
@@ -76,6 +77,11 @@ def optics_rows(optics: dict | None) -> list[dict]:
             "designed": {key: _at(designed.get(key), i) for key in _LOSS_KEYS} | _focus_at(designed.get("focus"), i),
             "phase_rms_rad": _at(phase.get("rms_rad"), i), "phase_strehl": _at(phase.get("strehl"), i),
             "vortex": _vortex_at(optics.get("vortex"), i),
+            "grooves_whole": None if not whole else {
+                "power_reflection": _at(whole.get("power_reflection"), i),
+                "power_transmission": _at(whole.get("power_transmission"), i),
+                **{f"{key}_off_points": _at((whole.get("cell_model_minus_whole_points") or {}).get(key), i)
+                   for key in ("power_reflection", "power_transmission")}},
         })
     return rows
 
