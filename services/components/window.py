@@ -16,9 +16,10 @@ from __future__ import annotations
 import manifold3d as m3d
 import numpy as np
 
-from services.components.base import Component, Context, finish
+from services.components.base import Component, Context, finish, smallest_printable_mm
 from services.components.formulas import Medium, largest_micron_below, medium_at, no_diffraction_period_mm
-from services.components.solid import CHORD_TOL_MM, check_fits, checked, disc, extrude_xz_profile, intersect, union
+from services.components.solid import (CHORD_TOL_MM, check_fits, checked, disc, extrude_xz_profile, intersect,
+                                       subtract, union)
 from services.errors import UnusableInput
 from services.optics import lamellar
 from services.optics.effective_medium import DEFAULT_MODEL, effective_permittivity, rytov_parallel, rytov_perpendicular
@@ -35,6 +36,11 @@ SINK_MM = 0.05  # matching layers reach this far into the core, so unions meet n
 # table's) on the default 130-150 GHz resin window (measured). The search's own tolerances, in fill and in depth:
 DESIGN_ORDERS = 21
 FILL_TOL, DEPTH_TOL_MM = 1e-4, 1e-4
+# Built for a printer, the lower face's grooves are closed at the rim by a solid ring this many of the printer's
+# smallest walls wide (engineering judgement): the core's edge then rests on material all round, where it would
+# otherwise start in mid-air beyond the ridges' ends.
+RIM_WALLS = 2
+BRIDGE_TRIES = 6  # periods tried, each shorter, for grooves whose ceilings the printer can bridge
 
 
 def build_window(ctx: Context) -> Component:
@@ -47,13 +53,14 @@ def build_window(ctx: Context) -> Component:
     core, order = _core_thickness(p, centre)
     period, limit = _period(p, band[2], ctx.material.name)
     layer = _matching_layer(p, centre, sweep, period, ctx.printer)
+    period, layer, rule = _bridged(p, centre, sweep, period, layer, ctx.printer)
     depth = layer.get("depth_mm", 0.0)
     width = p["diameter_mm"]
     check_fits((width, width, core + 2 * depth), ctx.volumes, "window")
-    solid = _window_solid(p, core, period, layer)
+    solid = _window_solid(p, core, period, layer, ctx.printer)
     derived = {"design_freq_ghz": centre.freq_ghz, "thickness_mm": core, "half_wave_order": order,
                "total_thickness_mm": core + 2 * depth, "period_mm": period if p["matching"] != "none" else None,
-               "period_limit_mm": limit, **{k: v for k, v in layer.items() if k != "slices"},
+               "period_limit_mm": limit, "period_rule": rule, **{k: v for k, v in layer.items() if k != "slices"},
                "band": _band_table(band, core, layer, period, p["groove_field"]),
                "max_face_reflectance": _face_worst(sweep, layer, period, p["groove_field"])}
     return finish(ctx, solid, centre, derived, focal_length_mm=None)
@@ -86,6 +93,38 @@ def _period(p: dict, top: Medium, name: str) -> tuple[float, float]:
         raise UnusableInput("period_too_large", f"A period of {period:g} mm lets diffraction orders propagate at "
                             f"{top.freq_ghz:g} GHz in {name} (n = {top.n:.4f}); use a period below {limit:.4f} mm.")
     return period, limit
+
+
+def widest_bridge_mm(printer) -> float | None:
+    """Return the widest gap a layer may span on this printer without a flat start: four self-supporting steps
+    from each side (``rules.overhang``: dz / tan(angle) a step), less a pixel; None without a printer or angle."""
+    from services.rules.overhang import FLAT_STEPS
+
+    angle = (printer.rule("overhang") or {}).get("self_supporting_deg") if printer is not None else None
+    if not angle or angle >= 90:
+        return None
+    return 2 * FLAT_STEPS * printer.layer_height_mm / np.tan(np.radians(angle)) - printer.pixel_mm
+
+
+def _bridged(p: dict, centre: Medium, sweep: list[Medium], period: float, layer: dict, printer):
+    """Return (period, layer, why the period): with grooves, no period given and a printer, the largest period
+    (from the no-diffraction limit down) whose grooves the lower face's core can span layer by layer; the
+    grooves' fill scarcely changes with the period, so each try shortens it by the share the groove is too wide."""
+    default = "the largest below the no-diffraction limit at the band's top"
+    if p["period_mm"]:
+        return period, layer, "given"
+    bridge = widest_bridge_mm(printer) if p["matching"] == "grooves" else None
+    if bridge is None:
+        return period, layer, default
+    for _ in range(BRIDGE_TRIES):
+        if layer["groove_width_mm"] <= bridge:
+            break
+        period = largest_micron_below(period * bridge / layer["groove_width_mm"])
+        layer = _matching_layer(p, centre, sweep, period, printer)
+    if layer["groove_width_mm"] > bridge:
+        return period, layer, default
+    return period, layer, (f"the largest below the no-diffraction limit whose grooves, {layer['groove_width_mm']:.3g} "
+                           f"mm wide, the printer spans under the core without a flat start (at most {bridge:.3g} mm)")
 
 
 def _matching_layer(p: dict, centre: Medium, sweep: list[Medium], period: float, printer) -> dict:
@@ -242,7 +281,7 @@ def _band_table(band, core: float, layer: dict, period: float | None = None, fie
     return rows
 
 
-def _window_solid(p: dict, core: float, period: float, layer: dict):
+def _window_solid(p: dict, core: float, period: float, layer: dict, printer=None):
     """Return the core with its matching layer on both faces, flat back of the lower layer on z = 0."""
     radius, depth = p["diameter_mm"] / 2, layer.get("depth_mm", 0.0)
     slab = disc(radius, core, "window", z0_mm=depth)
@@ -252,32 +291,58 @@ def _window_solid(p: dict, core: float, period: float, layer: dict):
     # with the core's own rim (coincident faces leave needle triangles in a union).
     inner = radius - 2 * CHORD_TOL_MM
     if p["matching"] == "grooves":
-        texture = _ridges(inner, period, layer["ridge_width_mm"], depth)
+        upper = _ridges(inner, period, layer["ridge_width_mm"], depth)
+        lower = upper if printer is None else _channels(inner, period, layer["ridge_width_mm"], depth,
+                                                        RIM_WALLS * smallest_printable_mm(printer))
     else:
         rim = disc(inner, depth + 2 * SINK_MM, "window", z0_mm=-SINK_MM)
-        texture = intersect(_texture(p["matching"], radius, period, layer), rim, "matching layer")
-    top = checked(texture.translate((0.0, 0.0, depth + core)), "matching layer")
-    bottom = checked(texture.mirror((0.0, 0.0, 1.0)).translate((0.0, 0.0, depth)), "matching layer")
+        upper = lower = intersect(_texture(p["matching"], radius, period, layer), rim, "matching layer")
+    top = checked(upper.translate((0.0, 0.0, depth + core)), "matching layer")
+    bottom = checked(lower.mirror((0.0, 0.0, 1.0)).translate((0.0, 0.0, depth)), "matching layer")
     return union([slab, top, bottom], "window")
 
 
 def _ridges(radius: float, period: float, ridge: float, depth: float):
-    """Return the groove layer's ridges standing on z = 0 (sunk SINK_MM below), each a bar ended square where its
-    outer edge meets the circle of ``radius``: a ridge cut by the circle itself would end in a sliver narrower
-    than any printer's smallest feature (a wedge where the arc crosses it at a slant, a crescent at the sides).
-    Bars shorter than they are wide are left out."""
-    count = int(np.ceil(radius / period))
-    bars = []
-    for centre in np.arange(-count, count + 1) * period:
-        outer = abs(centre) + ridge / 2
+    """Return the upper face's grooves: ridges standing on z = 0 (sunk SINK_MM below), each a bar ended square where
+    its outer edge meets the circle of ``radius``, the grooves between them open at both ends (no hollow the vat
+    film could seal). A ridge cut by the circle itself would end in a sliver narrower than any printer's smallest
+    feature (a wedge where the arc crosses it at a slant, a crescent at the sides). Bars shorter than they are
+    wide are left out."""
+    bars = [_bar(centre, ridge, half, depth + SINK_MM) for centre, half in _square_ended(radius, period, 0.0, ridge)]
+    return union(bars, "grooves")
+
+
+def _channels(radius: float, period: float, ridge: float, depth: float, rim: float):
+    """Return the lower face's grooves for a printer: a disc of ``radius`` standing on z = 0, with each groove cut
+    into it as a channel ended square at least ``rim`` inside the rim. Built first, on the plate, this face must
+    carry the core above it: closed channel ends and a solid ring leave the core's underside resting on material
+    all round, spanning only the channels' width (which ``_bridged`` keeps within what the printer can span).
+    The ring reflects as a bare face: a cost the whole-window figures (infinite grooves) do not include."""
+    gap = period - ridge
+    solid = disc(radius, depth + SINK_MM, "grooves", z0_mm=-SINK_MM)
+    cuts = [_bar(centre, gap, half, depth + 2 * SINK_MM) for centre, half
+            in _square_ended(radius - rim, period, period / 2, gap)]
+    return subtract(solid, union(cuts, "grooves"), "grooves") if cuts else solid
+
+
+def _square_ended(radius: float, period: float, offset: float, width: float) -> list[tuple[float, float]]:
+    """Return (centre x, half length) of each bar ``width`` wide, centred at offset + k period, whose corners lie on
+    the circle of ``radius``; bars that do not fit, or would be shorter than they are wide, are left out."""
+    count = int(np.ceil(radius / period)) + 1
+    out = []
+    for centre in offset + np.arange(-count, count + 1) * period:
+        outer = abs(centre) + width / 2
         if outer >= radius:
             continue
         half = float(np.sqrt(radius**2 - outer**2))
-        if 2 * half < ridge:
-            continue
-        bar = m3d.Manifold.cube((ridge, 2 * half, depth + SINK_MM), center=True)
-        bars.append(bar.translate((float(centre), 0.0, (depth - SINK_MM) / 2)))
-    return union(bars, "grooves")
+        if 2 * half >= width:
+            out.append((float(centre), half))
+    return out
+
+
+def _bar(centre: float, width: float, half: float, height: float):
+    """Return a bar ``width`` wide (x) and 2 half long (y) from z = -SINK_MM to height - SINK_MM."""
+    return m3d.Manifold.cube((width, 2 * half, height), center=True).translate((centre, 0.0, height / 2 - SINK_MM))
 
 
 def _texture(matching: str, radius: float, period: float, layer: dict):

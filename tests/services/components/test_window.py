@@ -118,3 +118,30 @@ def test_every_window_is_a_closed_solid(resin, matching):
     assert part.watertight and part.bodies == 1 and part.findings == () and part.volume_mm3 > 0
     assert solid_of(part).volume() == pytest.approx(part.volume_mm3, rel=1e-9)
     assert part.parameters["matching"] == matching and part.parameters["freq_ghz"] == 100.0
+
+
+@pytest.mark.parametrize("field", ["along", "across"])
+def test_a_grooved_window_built_for_bay_1_has_no_blocker(field):
+    """Built for the starter Bay 1 (0.15 mm walls, 0.3 mm gaps, 30 deg self-supporting, 50 um layers), the default
+    130-150 GHz window is printable: its lower face's grooves are no wider than the core can span layer by layer
+    (four self-supporting steps from each side, less a pixel: 2 x 4 x 0.05 / tan 30 deg - 0.05 = 0.643 mm; with E
+    along them the period drops from 1.199 to 0.866 mm for it), their ends are closed by a solid ring and no ridge
+    ends in a sliver. Before: two min_feature blockers (44 slivers down to 0.05 mm at the rim) and an island
+    blocker (the core's first layer over 0.9 mm grooves and past the ridges' ends)."""
+    from services import catalogue
+    from services.components.window import widest_bridge_mm
+    from services.report import build_report
+    from services.settings import CheckSettings, OpticsSettings
+
+    bay1, resin = catalogue.printer("bay1-lcd-resin"), catalogue.material("standard-resin")
+    assert widest_bridge_mm(bay1) == pytest.approx(2 * 4 * 0.05 / np.tan(np.radians(30)) - 0.05, abs=1e-12)
+    component = build_component("window", {"freq_min_ghz": 130.0, "freq_max_ghz": 150.0, "matching": "grooves",
+                                           "groove_field": field, "diameter_mm": 30.0}, material=resin, printer=bay1)
+    d = component.derived
+    assert d["groove_width_mm"] <= widest_bridge_mm(bay1)
+    assert (d["period_mm"] < d["period_limit_mm"] - 0.3) == (field == "along")
+    assert "spans under the core" in d["period_rule"] and d["max_face_reflectance"] < 0.0015
+    report = build_report(part=component.part, printer=bay1, material=resin,
+                          settings=CheckSettings(optics=OpticsSettings(freqs_ghz=(140.0,))))
+    assert report.verdict != "not_printable", [f.message for f in report.findings if f.severity == "blocker"]
+    assert not [f for f in report.findings if f.severity == "blocker"]
