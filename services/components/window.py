@@ -295,8 +295,19 @@ def _window_solid(p: dict, core: float, period: float, layer: dict, printer=None
         lower = upper if printer is None else _channels(inner, period, layer["ridge_width_mm"], depth,
                                                         RIM_WALLS * smallest_printable_mm(printer))
     else:
-        rim = disc(inner, depth + 2 * SINK_MM, "window", z0_mm=-SINK_MM)
-        upper = lower = intersect(_texture(p["matching"], radius, period, layer), rim, "matching layer")
+        smallest = smallest_printable_mm(printer)
+        pyramids = _texture(p["matching"], radius, period, layer)
+        upper = intersect(pyramids, _whole_cells(inner - smallest, period, depth), "matching layer")
+        if printer is not None:
+            # The ring meets the field along the cells' borders, half a gap from the outer pyramids' feet (a ring set a
+            # whole gap back left open edges in the union at some diameters; where half a gap is below the printer's
+            # smallest, the outer feet may fuse to the ring, which the check reports as a caution).
+            field = _whole_cells(inner - RIM_WALLS * smallest, period, depth)
+            lower = union([intersect(pyramids, field, "matching layer"),
+                           subtract(disc(inner, depth + SINK_MM, "window", z0_mm=-SINK_MM), field, "rim")],
+                          "matching layer")
+        else:
+            lower = upper
     top = checked(upper.translate((0.0, 0.0, depth + core)), "matching layer")
     bottom = checked(lower.mirror((0.0, 0.0, 1.0)).translate((0.0, 0.0, depth)), "matching layer")
     return union([slab, top, bottom], "window")
@@ -345,13 +356,36 @@ def _bar(centre: float, width: float, half: float, height: float):
     return m3d.Manifold.cube((width, 2 * half, height), center=True).translate((centre, 0.0, height / 2 - SINK_MM))
 
 
+def _whole_cells(radius: float, period: float, depth: float):
+    """Return the columns of the lattice cells (one pyramid each, centred on (i p, j p)) whose four corners lie within
+    ``radius``, from SINK_MM below z = 0 to SINK_MM above ``depth``: the pyramids kept whole. Their edges run along the
+    cells' borders, where the pyramids' feet leave only floor, so cutting there leaves no sliver (the rim's circle
+    cut pyramids into wedges narrower than any printer's smallest feature)."""
+    count = int(np.ceil(radius / period)) + 1
+    sites = np.arange(-count, count + 1) * period
+    x, y = np.meshgrid(sites, sites)
+    far = np.hypot(np.abs(x) + period / 2, np.abs(y) + period / 2)
+    squares = [m3d.CrossSection.square((period, period), center=True).translate((float(cx), float(cy)))
+               for cx, cy in zip(x[far < radius], y[far < radius])]
+    if not squares:
+        raise UnusableInput("texture_unprintable", f"No whole {period:g} mm pyramid cell fits within the window's "
+                            "rim; choose a larger window or a finer period.")
+    section = m3d.CrossSection.batch_boolean(squares, m3d.OpType.Add)
+    return checked(m3d.Manifold.extrude(section, depth + 2 * SINK_MM).translate((0.0, 0.0, -SINK_MM)), "pyramids")
+
+
 def _texture(matching: str, radius: float, period: float, layer: dict):
     """Return the pyramid texture standing on z = 0 (its floor reaching SINK_MM below), uncut, over the aperture."""
-    x, z = _wave(radius, period, layer["pyramid_base_mm"], layer["pyramid_tip_mm"], layer["depth_mm"])
+    base, tip, depth = layer["pyramid_base_mm"], layer["pyramid_tip_mm"], layer["depth_mm"]
+    # The feet go on down the same slope half a sink into the core, so no face of the floor between them lies in the
+    # core's own face (coplanar faces left open edges in the union once the rim's ring was added): at z = 0 the
+    # pyramids are still ``base`` wide.
+    sunk = SINK_MM / 2
+    x, z = _wave(radius, period, base + (base - tip) * sunk / depth, tip, depth + sunk)
     # Two crossed trapezoid ridges intersect in square frustums: the pyramids.
     prism = extrude_xz_profile(x, z, 2 * radius + 2, "pyramids")
-    return checked(intersect(prism, prism.rotate((0.0, 0.0, 90.0)), "pyramids").translate((0.0, 0.0, -SINK_MM)),
-                   "pyramids")
+    return checked(intersect(prism, prism.rotate((0.0, 0.0, 90.0)), "pyramids").translate(
+        (0.0, 0.0, -SINK_MM - sunk)), "pyramids")
 
 
 def _wave(radius: float, period: float, base: float, tip: float, height: float) -> tuple[np.ndarray, np.ndarray]:

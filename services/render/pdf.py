@@ -348,6 +348,16 @@ def _optics(doc: _Document, optics: dict | None, figures: Mapping[str, bytes]) -
                       _pair(d.get("strehl"), p.get("strehl"), 3), _pair(d.get("wavefront_focus_mm"), p.get("wavefront_focus_mm"), 1),
                       _num(r["phase_rms_rad"], 3)])
     _table(doc, table, (16, 16, 18, 32, 30, 36, 30))
+    if rows[0].get("grooves_whole"):
+        _text(doc, "Matching grooves solved whole: the designed window as one rigorous lamellar stack (the table above "
+                   "reads the grooves cell by cell); the cells' difference in percentage points.", 8.5, colour=MUTED)
+        whole = [["GHz", "Reflection", "Transmission", "Cells' difference R / T"]]
+        for r in rows:
+            g = r["grooves_whole"]
+            whole.append([f"{r['freq_ghz']:g}", f"{100 * g['power_reflection']:.2f} %",
+                          f"{100 * g['power_transmission']:.1f} %",
+                          _pair(g["power_reflection_off_points"], g["power_transmission_off_points"], 2)])
+        _table(doc, whole, (16, 40, 40, 60))
     # The loss against frequency (drawn for two frequencies or more), the focal plane, and the transmitted phase.
     for name, width_mm in (("optics_loss.png", 150), ("optics_focal_plane.png", 150), ("optics_phase_map.png", 100)):
         if name in figures:

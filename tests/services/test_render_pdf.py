@@ -116,3 +116,17 @@ def test_a_material_without_waste_says_nothing_of_it(finned_report):
     report["estimate"] = {**report["estimate"], "waste_ml": 0.0, "waste_percent": 0.0}
     text, _ = _text(report_pdf(report, finned_report.figures, checked_at=CHECKED_AT))
     assert "of it waste" not in text and "Print time for one part" in text
+
+
+def test_a_grooved_window_carries_its_whole_solution_beside_the_cells():
+    """A report whose optics solved a window's grooves whole prints them with the cells' difference, per frequency."""
+    optics = {"frequencies_ghz": [130.0, 150.0], "eps_r": [2.77, 2.77], "tan_delta": [0.03, 0.03],
+              "transmission_loss_db": [1.2, 1.3], "as_designed": {"transmission_loss_db": [1.2, 1.3]},
+              "analysis": {"grooves_whole_window": {
+                  "power_reflection": [0.00026, 0.0039], "power_transmission": [0.853, 0.814],
+                  "cell_model_minus_whole_points": {"power_reflection": [0.13, 0.05], "power_transmission": [0.0, 2.0]}}}}
+    report = {"design": {"name": "window.stl"}, "printer": {"name": "P", "version": 2}, "material": {"name": "M"},
+              "verdict": "printable", "findings": [], "estimate": None, "optics": optics, "cautions": []}
+    text, _ = _text(report_pdf(report, {}, checked_at=CHECKED_AT))
+    assert "Matching grooves solved whole" in text
+    assert "0.39 %" in text and "81.4 %" in text and "0.05 / 2.00" in text
