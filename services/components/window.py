@@ -107,9 +107,9 @@ def widest_bridge_mm(printer) -> float | None:
 
 
 def _bridged(p: dict, centre: Medium, sweep: list[Medium], period: float, layer: dict, printer):
-    """Return (period, layer, why the period): with grooves, no period given and a printer, the largest period
-    (from the no-diffraction limit down) whose grooves the lower face's core can span layer by layer; the
-    grooves' fill scarcely changes with the period, so each try shortens it by the share the groove is too wide."""
+    """Return (period, layer, why the period): with grooves, no period given and a printer, the period shortened from
+    the no-diffraction limit until the lower face's core can span its grooves layer by layer; the grooves' fill
+    scarcely changes with the period, so each try shortens it by the share the groove is too wide."""
     default = "the largest below the no-diffraction limit at the band's top"
     if p["period_mm"]:
         return period, layer, "given"
@@ -123,8 +123,8 @@ def _bridged(p: dict, centre: Medium, sweep: list[Medium], period: float, layer:
         layer = _matching_layer(p, centre, sweep, period, printer)
     if layer["groove_width_mm"] > bridge:
         return period, layer, default
-    return period, layer, (f"the largest below the no-diffraction limit whose grooves, {layer['groove_width_mm']:.3g} "
-                           f"mm wide, the printer spans under the core without a flat start (at most {bridge:.3g} mm)")
+    return period, layer, (f"shortened from the no-diffraction limit until the grooves, {layer['groove_width_mm']:.3g} mm "
+                           f"wide, are ones the printer spans under the core without a flat start (at most {bridge:.3g} mm)")
 
 
 def _matching_layer(p: dict, centre: Medium, sweep: list[Medium], period: float, printer) -> dict:

@@ -58,6 +58,7 @@ def note_sentence(name: str, whole: dict, freqs_ghz) -> str | None:
     i = int(np.argmax(np.maximum(d_r / R_NOTE_POINTS, d_t / T_NOTE_POINTS)))
     return (f"{name}: at {float(freqs_ghz[i]):g} GHz the designed window, solved whole, reflects "
             f"{100 * whole['power_reflection'][i]:.2f} % and transmits {100 * whole['power_transmission'][i]:.1f} %; "
-            f"the check's cells (equivalent layers of the grooves) differ by {d_r[i]:.2f} and {d_t[i]:.1f} points "
-            "there, since near the no-diffraction limit the two faces couple through the core. Read the whole "
-            "solution (analysis.grooves_whole_window) for the design; the cells' figures for what the print changes.")
+            f"the check's cells differ by {d_r[i]:.2f} and {d_t[i]:.1f} points there (their equivalent layers miss "
+            "how the two faces couple through the core near the no-diffraction limit; they also hold the print's "
+            "pixel and layer steps and any ring closing the grooves at the rim). Read the whole solution "
+            "(analysis.grooves_whole_window) for the design; the cells' figures for what the print changes.")

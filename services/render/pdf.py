@@ -349,8 +349,9 @@ def _optics(doc: _Document, optics: dict | None, figures: Mapping[str, bytes]) -
                       _num(r["phase_rms_rad"], 3)])
     _table(doc, table, (16, 16, 18, 32, 30, 36, 30))
     if rows[0].get("grooves_whole"):
-        _text(doc, "Matching grooves solved whole: the designed window as one rigorous lamellar stack (the table above "
-                   "reads the grooves cell by cell); the cells' difference in percentage points.", 8.5, colour=MUTED)
+        _text(doc, "Matching grooves solved whole: the designed window, unbounded, as one rigorous lamellar stack (the "
+                   "table above reads the part cell by cell, with its pixel and layer steps and any ring at the rim); "
+                   "the cells' difference in percentage points.", 8.5, colour=MUTED)
         whole = [["GHz", "Reflection", "Transmission", "Cells' difference R / T"]]
         for r in rows:
             g = r["grooves_whole"]
