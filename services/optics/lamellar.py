@@ -59,12 +59,7 @@ def zero_order(layers: Sequence[Grating | Uniform], *, period_mm: float, freq_gh
                exit_eps: complex = 1.0, orders: int = ORDERS) -> ZeroOrder:
     """Return what a plane wave from air, at normal incidence, does through ``layers`` (in the order it meets
     them) into ``exit_eps`` (a half space: 1 for air)."""
-    if polarisation not in POLARISATIONS:
-        raise ValueError(f"polarisation must be one of {POLARISATIONS}, not {polarisation!r}")
-    if orders < 1 or orders % 2 == 0:
-        raise ValueError("orders must be odd (the orders -m..m)")
-    te = polarisation == "along"
-    kx = np.arange(-(orders // 2), orders // 2 + 1) * float(wavelength_mm(freq_ghz)) / period_mm  # kx / k0
+    te, kx = _orders(polarisation, orders, period_mm, freq_ghz)
     k0 = 2 * np.pi / float(wavelength_mm(freq_ghz))
     gap_w = gap_v = np.eye(orders, dtype=complex)  # a zero-thickness reference medium: any invertible W, V
     entry = _uniform_modes(1.0, kx, te)
@@ -89,6 +84,16 @@ def zero_order(layers: Sequence[Grating | Uniform], *, period_mm: float, freq_gh
         r = -r
         t = t * exit_.q[orders // 2] / np.conj(complex(exit_eps)) / entry.q[orders // 2]
     return ZeroOrder(complex(np.conj(r)), complex(np.conj(t)), reflectance, transmittance)
+
+
+def _orders(polarisation: str, orders: int, period_mm: float, freq_ghz: float) -> tuple[bool, np.ndarray]:
+    """Return (TE?, each order's kx / k0 at normal incidence), refusing a polarisation or an order count that is not."""
+    if polarisation not in POLARISATIONS:
+        raise ValueError(f"polarisation must be one of {POLARISATIONS}, not {polarisation!r}")
+    if orders < 1 or orders % 2 == 0:
+        raise ValueError("orders must be odd (the orders -m..m)")
+    m = np.arange(-(orders // 2), orders // 2 + 1)
+    return polarisation == "along", m * float(wavelength_mm(freq_ghz)) / period_mm
 
 
 @dataclass(frozen=True, slots=True)
@@ -187,9 +192,7 @@ def equivalent_layer(eps: complex, fill: float, *, period_mm: float, freq_ghz: f
     """Return (n, z) of the uniform layer that stands for a lamellar layer (project convention): n the fundamental
     mode's index (the largest Re q), z the impedance over eta0 that gives the grating's exact reflection as a half
     space from air, r = (z - 1) / (z + 1)."""
-    te = polarisation == "along"
-    lam = float(wavelength_mm(freq_ghz))
-    kx = np.arange(-(orders // 2), orders // 2 + 1) * lam / period_mm
+    te, kx = _orders(polarisation, orders, period_mm, freq_ghz)
     modes = _grating_modes(np.conj(complex(eps)), float(fill), kx, te)
     fundamental = modes.q[np.argmax(modes.q.real)]
     eye = np.eye(orders, dtype=complex)

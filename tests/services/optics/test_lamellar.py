@@ -114,5 +114,7 @@ def test_a_grooved_window_near_the_diffraction_limit_agrees_with_inkstone(field)
 def test_it_refuses_an_unknown_polarisation_or_an_even_order_count():
     with pytest.raises(ValueError, match="polarisation"):
         lm.zero_order([], period_mm=1.0, freq_ghz=100.0, polarisation="diagonal")
+    with pytest.raises(ValueError, match="polarisation"):
+        lm.equivalent_layer(EPS, 0.5, period_mm=1.0, freq_ghz=100.0, polarisation="diagonal")
     with pytest.raises(ValueError, match="odd"):
         lm.zero_order([], period_mm=1.0, freq_ghz=100.0, polarisation="along", orders=20)
