@@ -36,9 +36,9 @@ SINK_MM = 0.05  # matching layers reach this far into the core, so unions meet n
 # table's) on the default 130-150 GHz resin window (measured). The search's own tolerances, in fill and in depth:
 DESIGN_ORDERS = 21
 FILL_TOL, DEPTH_TOL_MM = 1e-4, 1e-4
-# Built for a printer, the lower face's grooves are closed at the rim by a solid ring this many of the printer's
-# smallest walls wide (engineering judgement): the core's edge then rests on material all round, where it would
-# otherwise start in mid-air beyond the ridges' ends.
+# Built for a printer, the lower face's texture (grooves or pyramids) is closed at the rim by a solid ring this many
+# of the printer's smallest walls wide (engineering judgement): the core's edge then rests on material all round,
+# where it would otherwise start in mid-air beyond the texture's ends.
 RIM_WALLS = 2
 BRIDGE_TRIES = 6  # periods tried, each shorter, for grooves whose ceilings the printer can bridge
 
@@ -111,6 +111,8 @@ def _bridged(p: dict, centre: Medium, sweep: list[Medium], period: float, layer:
     the no-diffraction limit until the lower face's core can span its grooves layer by layer; the grooves' fill
     scarcely changes with the period, so each try shortens it by the share the groove is too wide."""
     default = "the largest below the no-diffraction limit at the band's top"
+    if p["matching"] == "none":
+        return period, layer, None
     if p["period_mm"]:
         return period, layer, "given"
     bridge = widest_bridge_mm(printer) if p["matching"] == "grooves" else None
@@ -296,7 +298,7 @@ def _window_solid(p: dict, core: float, period: float, layer: dict, printer=None
                                                         RIM_WALLS * smallest_printable_mm(printer))
     else:
         smallest = smallest_printable_mm(printer)
-        pyramids = _texture(p["matching"], radius, period, layer)
+        pyramids = _pyramids_uncut(radius, period, layer)
         upper = intersect(pyramids, _whole_cells(inner - smallest, period, depth), "matching layer")
         if printer is not None:
             # The ring meets the field along the cells' borders, half a gap from the outer pyramids' feet (a ring set a
@@ -374,7 +376,7 @@ def _whole_cells(radius: float, period: float, depth: float):
     return checked(m3d.Manifold.extrude(section, depth + 2 * SINK_MM).translate((0.0, 0.0, -SINK_MM)), "pyramids")
 
 
-def _texture(matching: str, radius: float, period: float, layer: dict):
+def _pyramids_uncut(radius: float, period: float, layer: dict):
     """Return the pyramid texture standing on z = 0 (its floor reaching SINK_MM below), uncut, over the aperture."""
     base, tip, depth = layer["pyramid_base_mm"], layer["pyramid_tip_mm"], layer["depth_mm"]
     # The feet go on down the same slope half a sink into the core, so no face of the floor between them lies in the

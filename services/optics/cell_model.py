@@ -88,7 +88,7 @@ def cell_index_for(part: Part, rf: RFValues, period: tuple[float, str] | None, *
                    progress: Callable[[float], None] | None = None, terms: int = TERMS) -> tuple[CellIndex, str]:
     """Return the cell model for this part and a sentence saying why it was chosen."""
     if period is None or period[1] != "declared":
-        return CellIndex(_eps(rf)), "effective medium: no declared lattice of round pillars or holes"
+        return CellIndex(rf.eps), "effective medium: no declared lattice of round pillars or holes"
     return declared_cell_index(part.parameters or {}, rf, period[0], folder=folder, progress=progress, terms=terms)
 
 
@@ -101,7 +101,7 @@ def declared_cell_index(params: dict, rf: RFValues, period_mm: float, *, folder:
     The generator that builds the plate and the check that judges it both come here, so they ask for
     the same table (the same cache key) and map fills to layers the same way.
     """
-    eps = _eps(rf)
+    eps = rf.eps
     if params.get("matching") == "grooves" and params.get("groove_field") in lamellar.POLARISATIONS:
         return _groove_index(params["groove_field"], rf, eps, float(period_mm))
     kind, lattice = params.get("cell"), params.get("lattice")
@@ -127,13 +127,8 @@ def declared_cell_index(params: dict, rf: RFValues, period_mm: float, *, folder:
 def _groove_index(field: str, rf: RFValues, eps: np.ndarray, period_mm: float) -> tuple[CellIndex, str]:
     """Return the model of a window's declared grooves: the lamellar solver's equivalent layers, and why."""
     pn_over_lambda = period_mm * float(np.sqrt(rf.eps_r.max())) / float(wavelength_mm(rf.freqs_ghz.max()))
-    spec = lamellar.TableSpec(freqs_ghz=tuple(float(f) for f in rf.freqs_ghz), eps=tuple(complex(e) for e in eps),
+    spec = lamellar.GrooveSpec(freqs_ghz=tuple(float(f) for f in rf.freqs_ghz), eps=tuple(complex(e) for e in eps),
                               period_mm=period_mm, polarisation=field)
     return CellIndex(eps, table=lamellar.groove_table(spec)), (
         f"lamellar grating: the generator declared grooves of period {period_mm:g} mm with the electric field "
         f"{field} them (p n / lambda = {pn_over_lambda:.2f})")
-
-
-def _eps(rf: RFValues) -> np.ndarray:
-    """Return each frequency's complex permittivity, e^{+j omega t}: eps' (1 - j tan delta)."""
-    return rf.eps_r * (1 - 1j * rf.tan_delta)

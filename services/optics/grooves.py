@@ -28,9 +28,8 @@ def declared_grooves(params: dict | None) -> bool:
 def whole_window(params: dict, rf: RFValues, as_designed: dict) -> dict:
     """Return the designed window's reflectance and transmittance at each frequency, solved whole, and their
     differences from the check's as-designed ``power_reflection`` and ``power_transmission`` (in points)."""
-    eps = rf.eps_r * (1 - 1j * rf.tan_delta)
     rows = []
-    for f, e in zip(rf.freqs_ghz, eps):
+    for f, e in zip(rf.freqs_ghz, rf.eps):
         face = lamellar.Grating(complex(e), float(params["fill"]), float(params["depth_mm"]))
         rows.append(lamellar.zero_order([face, lamellar.Uniform(complex(e), float(params["thickness_mm"])), face],
                                         period_mm=float(params["period_mm"]), freq_ghz=float(f),

@@ -61,29 +61,34 @@ def zero_order(layers: Sequence[Grating | Uniform], *, period_mm: float, freq_gh
     them) into ``exit_eps`` (a half space: 1 for air)."""
     te, kx = _orders(polarisation, orders, period_mm, freq_ghz)
     k0 = 2 * np.pi / float(wavelength_mm(freq_ghz))
-    gap_w = gap_v = np.eye(orders, dtype=complex)  # a zero-thickness reference medium: any invertible W, V
     entry = _uniform_modes(1.0, kx, te)
     exit_ = _uniform_modes(np.conj(complex(exit_eps)), kx, te)
-    s = _reflection_side(entry, gap_w, gap_v)
+    solved: dict[tuple, _Modes] = {}  # a window's two faces are one grating: its modes are solved once
+    s = _reflection_side(entry)
     for layer in layers:
-        if isinstance(layer, Grating):
-            modes = _grating_modes(np.conj(complex(layer.eps)), float(layer.fill), kx, te)
-        else:
-            modes = _uniform_modes(np.conj(complex(layer.eps)), kx, te)
-        s = _star(s, _layer_s(modes, layer.thickness_mm * k0, gap_w, gap_v))
-    s = _star(s, _transmission_side(exit_, gap_w, gap_v))
-    incident = np.zeros(orders, dtype=complex)
-    incident[orders // 2] = 1.0
-    back, through = s[0] @ incident, s[2] @ incident
+        fill = float(layer.fill) if isinstance(layer, Grating) else None
+        key = (complex(layer.eps), fill)
+        if key not in solved:
+            eps = np.conj(complex(layer.eps))
+            solved[key] = _uniform_modes(eps, kx, te) if fill is None else _grating_modes(eps, fill, kx, te)
+        s = _star(s, _layer_s(solved[key], layer.thickness_mm * k0))
+    s = _star(s, _transmission_side(exit_))
+    zeroth = orders // 2
+    back, through = s[0][:, zeroth], s[2][:, zeroth]
     # Power per order: the flux of each order over the incident one's (Re q for TE, Re q / eps for TM's H field).
-    flux_in = entry.flux
-    reflectance = float(np.sum(entry.flux * np.abs(back) ** 2) / flux_in[orders // 2])
-    transmittance = float(np.sum(exit_.flux * np.abs(through) ** 2) / flux_in[orders // 2])
-    r, t = back[orders // 2], through[orders // 2]
-    if not te:  # the amplitudes are of H_y; the tangential E of a backward wave has the opposite sign
-        r = -r
-        t = t * exit_.q[orders // 2] / np.conj(complex(exit_eps)) / entry.q[orders // 2]
-    return ZeroOrder(complex(np.conj(r)), complex(np.conj(t)), reflectance, transmittance)
+    flux_in, flux_out = np.real(np.diag(entry.v)), np.real(np.diag(exit_.v))
+    reflectance = float(np.sum(flux_in * np.abs(back) ** 2) / flux_in[zeroth])
+    transmittance = float(np.sum(flux_out * np.abs(through) ** 2) / flux_in[zeroth])
+    r, t = _project_r(back[zeroth], te), through[zeroth]
+    if not te:  # the amplitudes are of H_y: the tangential E is H times q / eps in each half space
+        t = t * exit_.q[zeroth] / np.conj(complex(exit_eps)) / entry.q[zeroth]
+    return ZeroOrder(r, complex(np.conj(t)), reflectance, transmittance)
+
+
+def _project_r(r_amplitude: complex, te: bool) -> complex:
+    """Return the zero order's reflection of the tangential E field, project convention, from the solver's
+    amplitude (of E_y for TE; of H_y for TM, whose backward wave's tangential E has the opposite sign)."""
+    return complex(np.conj(r_amplitude if te else -r_amplitude))
 
 
 def _orders(polarisation: str, orders: int, period_mm: float, freq_ghz: float) -> tuple[bool, np.ndarray]:
@@ -101,7 +106,6 @@ class _Modes:
     w: np.ndarray  # the modes' tangential E (TE) or H (TM) in the orders' basis
     v: np.ndarray  # their tangential H (TE) or E (TM), normalised to free space
     q: np.ndarray  # forward propagation constants / k0, Im q >= 0 (e^{-i omega t})
-    flux: np.ndarray  # a uniform medium's power flux per order per unit |amplitude|^2 (zero for a grating)
 
 
 def _forward(q2: np.ndarray) -> np.ndarray:
@@ -113,7 +117,7 @@ def _forward(q2: np.ndarray) -> np.ndarray:
 def _uniform_modes(eps: complex, kx: np.ndarray, te: bool) -> _Modes:
     q = _forward(eps - kx**2)
     v = q if te else q / eps
-    return _Modes(np.eye(len(kx), dtype=complex), np.diag(v), q, np.real(v))
+    return _Modes(np.eye(len(kx), dtype=complex), np.diag(v), q)
 
 
 def _grating_modes(eps: complex, fill: float, kx: np.ndarray, te: bool) -> _Modes:
@@ -136,7 +140,7 @@ def _grating_modes(eps: complex, fill: float, kx: np.ndarray, te: bool) -> _Mode
         q2, w = np.linalg.eig(omega2)
         q = _forward(q2)
         v = inv_mat @ w * q[None, :]
-    return _Modes(w, v, q, np.zeros(n))
+    return _Modes(w, v, q)
 
 
 def _ridge_fourier(inside: complex, fill: float, orders: int, background: complex = 1.0) -> np.ndarray:
@@ -149,11 +153,13 @@ def _ridge_fourier(inside: complex, fill: float, orders: int, background: comple
     return out
 
 
-def _layer_s(modes: _Modes, phase_thickness: float, w0: np.ndarray, v0: np.ndarray) -> tuple:
-    """Return a layer's symmetric scattering matrix between two zero-thickness reference media (Rumpf 2011)."""
-    w_inv_w0 = np.linalg.solve(modes.w, w0)
-    v_inv_v0 = np.linalg.solve(modes.v, v0)
-    a, b = w_inv_w0 + v_inv_v0, w_inv_w0 - v_inv_v0
+# Every layer's scattering matrix is taken between zero-thickness reference media (Rumpf 2011): any with invertible
+# W and V will do, and W = V = I (the identity) takes the most algebra out of the formulas below.
+
+
+def _layer_s(modes: _Modes, phase_thickness: float) -> tuple:
+    """Return a layer's symmetric scattering matrix between two reference media."""
+    a, b = _interface(modes)
     x = np.diag(np.exp(1j * modes.q * phase_thickness))
     a_inv = np.linalg.inv(a)
     xba = x @ b @ a_inv
@@ -163,17 +169,26 @@ def _layer_s(modes: _Modes, phase_thickness: float, w0: np.ndarray, v0: np.ndarr
     return s11, s12, s12, s11
 
 
-def _reflection_side(modes: _Modes, w0: np.ndarray, v0: np.ndarray) -> tuple:
-    a = np.linalg.solve(w0, modes.w) + np.linalg.solve(v0, modes.v)
-    b = np.linalg.solve(w0, modes.w) - np.linalg.solve(v0, modes.v)
-    a_inv = np.linalg.inv(a)
+def _interface(modes: _Modes) -> tuple[np.ndarray, np.ndarray]:
+    """Return (A, B) = (W^-1 + V^-1, W^-1 - V^-1) of a medium against the reference medium (Rumpf's A and B with
+    W0 = V0 = I); for a half space their roles give the sides below."""
+    w_inv, v_inv = np.linalg.inv(modes.w), np.linalg.inv(modes.v)
+    return w_inv + v_inv, w_inv - v_inv
+
+
+def _half_space(modes: _Modes) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Return (A, B, A^-1) of a half space's medium seen from the reference medium (A = W + V, B = W - V)."""
+    a, b = modes.w + modes.v, modes.w - modes.v
+    return a, b, np.linalg.inv(a)
+
+
+def _reflection_side(modes: _Modes) -> tuple:
+    a, b, a_inv = _half_space(modes)
     return -a_inv @ b, 2 * a_inv, 0.5 * (a - b @ a_inv @ b), b @ a_inv
 
 
-def _transmission_side(modes: _Modes, w0: np.ndarray, v0: np.ndarray) -> tuple:
-    a = np.linalg.solve(w0, modes.w) + np.linalg.solve(v0, modes.v)
-    b = np.linalg.solve(w0, modes.w) - np.linalg.solve(v0, modes.v)
-    a_inv = np.linalg.inv(a)
+def _transmission_side(modes: _Modes) -> tuple:
+    a, b, a_inv = _half_space(modes)
     return b @ a_inv, 0.5 * (a - b @ a_inv @ b), 2 * a_inv, -a_inv @ b
 
 
@@ -195,12 +210,9 @@ def equivalent_layer(eps: complex, fill: float, *, period_mm: float, freq_ghz: f
     te, kx = _orders(polarisation, orders, period_mm, freq_ghz)
     modes = _grating_modes(np.conj(complex(eps)), float(fill), kx, te)
     fundamental = modes.q[np.argmax(modes.q.real)]
-    eye = np.eye(orders, dtype=complex)
-    s = _star(_reflection_side(_uniform_modes(1.0, kx, te), eye, eye), _transmission_side(modes, eye, eye))
-    r = s[0][orders // 2, orders // 2]
-    r = r if te else -r
-    r = np.conj(r)
-    return complex(np.conj(fundamental)), complex((1 + r) / (1 - r))
+    s = _star(_reflection_side(_uniform_modes(1.0, kx, te)), _transmission_side(modes))
+    r = _project_r(s[0][orders // 2, orders // 2], te)
+    return complex(np.conj(fundamental)), (1 + r) / (1 - r)
 
 
 TABLE_FILLS = tuple(np.round(np.linspace(0.01, 0.99, 99), 4))  # fills of the equivalent-layer table, interpolated
@@ -213,7 +225,7 @@ EQUIVALENT_LAYER_BOUND = ("equivalent layers against the whole lamellar solution
 
 
 @dataclass(frozen=True, slots=True)
-class TableSpec:
+class GrooveSpec:
     """What an equivalent-layer table is for: frequencies, permittivities (project convention), period, field."""
 
     freqs_ghz: tuple[float, ...]
@@ -228,7 +240,7 @@ class GrooveTable:
     """Each frequency's equivalent layer (n, z) of the grooves at every table fill, read by linear interpolation:
     what ``cell_model.CellIndex`` reads for a declared groove texture, as it reads a rigorous cell table."""
 
-    spec: TableSpec
+    spec: GrooveSpec
     n: np.ndarray  # (nf, fills) complex
     z: np.ndarray
 
@@ -248,7 +260,7 @@ class GrooveTable:
                 "accuracy": EQUIVALENT_LAYER_BOUND}
 
 
-def groove_table(spec: TableSpec) -> GrooveTable:
+def groove_table(spec: GrooveSpec) -> GrooveTable:
     """Return the equivalent layers of the grooves for every frequency and table fill (about 2 ms each)."""
     n = np.empty((len(spec.freqs_ghz), len(spec.fills)), dtype=complex)
     z = np.empty_like(n)

@@ -34,6 +34,11 @@ class RFValues:
     outside: np.ndarray
     table_range_ghz: tuple[float, float]
 
+    @property
+    def eps(self) -> np.ndarray:
+        """Return each frequency's complex permittivity, e^{+j omega t}: eps' (1 - j tan delta)."""
+        return self.eps_r * (1 - 1j * self.tan_delta)
+
 
 def wavelength_mm(freq_ghz):
     """Return the free-space wavelength in mm."""

@@ -67,7 +67,7 @@ def cell_sparams(stack, grid: CellGrid, rf: RFValues, *, variants: Sequence[Vari
     ``cells`` maps a partly filled cell to its layer (a rigorous table); by default the effective medium ``model``.
     """
     k0 = (2 * np.pi / wavelength_mm(rf.freqs_ghz))[:, None]
-    eps = (rf.eps_r * (1 - 1j * rf.tan_delta))[:, None]
+    eps = rf.eps[:, None]
     index = cells if cells is not None else CellIndex(eps[:, 0], model)
     grows = any(v.grow_mm for v in variants)
     # A lattice grid cascades its cells' own fills (for the single-pass path under the march) and then the

@@ -30,7 +30,7 @@ def test_a_full_ridge_is_the_material_and_a_fine_grating_its_rytov_layer():
 
 def test_the_table_reads_the_equivalent_layer_between_its_fills():
     """Linear interpolation over 99 fills: within 1e-4 of a direct solve at 21 orders, fill 0.258 (between two)."""
-    spec = lm.TableSpec((140.0,), (EPS,), 1.199, "along")
+    spec = lm.GrooveSpec((140.0,), (EPS,), 1.199, "along")
     n, z = lm.groove_table(spec).equivalent([0.258])
     n_direct, z_direct = lm.equivalent_layer(EPS, 0.258, period_mm=1.199, freq_ghz=140.0, polarisation="along",
                                              orders=lm.TABLE_ORDERS)
